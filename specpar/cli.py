@@ -1,0 +1,184 @@
+"""Command line: ``specpar <command> ...``; a thin layer over the library."""
+from __future__ import annotations
+
+import argparse
+import sys
+
+from . import __version__
+from .bands import BAND_NAMES
+from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
+from .tableio import FORMATS
+
+__all__ = ["main"]
+
+EPILOG_ESTIMATE = f"""\
+input columns:
+  sptype            MK type, e.g. 'K1 III', 'B2.5IV-V', 'G8III:' (class V assumed if absent)
+  {' '.join(BAND_NAMES)}
+                    magnitudes, each with an optional error column e_<band>
+  B-V, U-B, V-Ic... colours as catalogues give them (with e_B-V ...), used where
+                    the two magnitudes are not both present
+  other columns     carried through unchanged
+  Use --col OURS=YOURS when your names differ, e.g. --col V=Vmag --col sptype=SpT.
+
+output: every input row, in order, plus dist_pc, dist_lo_pc, dist_hi_pc (16th/84th
+percentiles), dm, e_dm, ebv, e_ebv, av, mv, plx_phot_mas, flags, flag_codes, note...
+Assumptions (calibrations, extinction law, R_V) are written into the file's metadata.
+
+example:
+  specpar estimate samples/survey.csv -o survey_distances.ecsv
+"""
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # one line and status 2, as argparse does, without the full usage
+        self.print_usage(sys.stderr)
+        self.exit(2, f"{self.prog}: error: {message}\n")
+
+
+def _column_map(pairs):
+    out = {}
+    for p in pairs or ():
+        if "=" not in p:
+            raise ValueError(f"--col takes OURS=YOURS (e.g. V=Vmag), got {p!r}")
+        ours, theirs = (s.strip() for s in p.split("=", 1))
+        out[ours] = theirs
+    return out
+
+
+def _add_estimate_options(p):
+    p.add_argument("input", help="table of stars (CSV, ECSV, FITS, VOTable or Parquet)")
+    p.add_argument("-o", "--output", required=True, help="output table; format from its extension")
+    p.add_argument("--in-format", choices=list(FORMATS), help="input format if the extension does not tell")
+    p.add_argument("--out-format", choices=list(FORMATS), help="output format if the extension does not tell")
+    p.add_argument("--col", action="append", metavar="OURS=YOURS",
+                   help="map one of our column names to yours (repeatable)")
+    p.add_argument("--law", default=DEFAULT_LAW, choices=list(LAWS),
+                   help=f"extinction law from dust_extinction (default {DEFAULT_LAW})")
+    p.add_argument("--rv", type=float, default=DEFAULT_RV, help=f"R_V = A_V/E(B-V) (default {DEFAULT_RV})")
+    p.add_argument("--sigma-rv", type=float, default=0.2, help="uncertainty of R_V (default 0.2)")
+    p.add_argument("--fit-rv", action="store_true",
+                   help="fit R_V per star where >= 3 magnitudes and clear reddening constrain it")
+    p.add_argument("--mc", type=int, metavar="N", default=0,
+                   help="Monte Carlo error propagation with N draws per star (default: analytic)")
+    p.add_argument("--seed", type=int, default=0, help="seed for --mc (default 0)")
+    p.add_argument("--default-error", type=float, default=0.05,
+                   help="error in mag assumed where a magnitude has none (flagged; default 0.05)")
+    p.add_argument("--calibration", action="append", metavar="FILE",
+                   help="your own calibration table (ECSV, same format as the shipped ones); "
+                        "replaces the shipped table of its luminosity class (repeatable)")
+    p.add_argument("--explain", action="store_true", help="add M_<band> and A_<band> columns")
+    g = p.add_argument_group("parallax cross-check (when the input has plx and e_plx in mas)")
+    g.add_argument("--plx-offset", type=float, default=0.0, metavar="MAS",
+                   help="parallax zero point, subtracted from plx (default 0)")
+    g.add_argument("--plx-error-scale", type=float, default=1.0, metavar="F",
+                   help="multiply e_plx by F (default 1)")
+    g.add_argument("--tension", type=float, default=3.0, metavar="Z",
+                   help="flag stars with |z| above Z (default 3)")
+    g.add_argument("--length-scale", type=float, default=1350.0, metavar="PC",
+                   help="length scale of the exponentially decreasing space density prior "
+                        "(Bailer-Jones 2015; default 1350 pc)")
+    p.add_argument("--overwrite", action="store_true", help="replace the output file if it exists")
+    p.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+
+
+def _cmd_estimate(args):
+    from .estimate import estimate
+    from .tableio import read_table, write_table
+    table = read_table(args.input, args.in_format)
+    out = estimate(
+        table, law=args.law, rv=args.rv, sigma_rv=args.sigma_rv, fit_rv=args.fit_rv,
+        method="mc" if args.mc else "analytic", n_draws=args.mc or 1000, seed=args.seed,
+        default_error=args.default_error, calibrations=tuple(args.calibration or ()),
+        columns=_column_map(args.col), progress=not args.quiet, explain=args.explain,
+        plx_offset=args.plx_offset, plx_error_scale=args.plx_error_scale, tension=args.tension,
+        length_scale_pc=args.length_scale)
+    write_table(out, args.output, args.out_format, inputs=[args.input], overwrite=args.overwrite)
+    if not args.quiet:
+        n = len(out)
+        ok = int((out["flags"] & 256 == 0).sum())
+        flagged = int((out["flags"] != 0).sum())
+        print(f"specpar: {n} rows -> {args.output}: {ok} with a distance, {flagged} flagged "
+              f"(see the 'note' column)")
+    return 0
+
+
+def _cmd_calibrations(args):
+    from .calibration import default_calibrations
+    cals = default_calibrations()
+    for lc, cal in cals.by_class.items():
+        lo, hi = cal.sptnum_range
+        print(f"{lc:>4}  {cal.name}: {cal.title}")
+        print(f"      types {lo:g}-{hi:g} (O0=0 ... M0=60); bands {' '.join(cal.bands)}")
+        for ref in cal.references:
+            print(f"      ref: {ref}")
+    return 0
+
+
+def _cmd_bench(args):
+    from .bench import run_benchmark
+    run_benchmark(n_rows=args.rows, n_loop=args.loop_rows, workdir=args.workdir)
+    return 0
+
+
+#: Modules that add their own sub-commands through ``register_cli(subparsers)``.
+_SUBCOMMAND_MODULES = ("parallax", "cluster", "worked", "problems")
+
+
+def _register_optional(sub):
+    import importlib
+    for name in _SUBCOMMAND_MODULES:
+        try:
+            mod = importlib.import_module(f"specpar.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"specpar.{name}":
+                continue  # that part of specpar is not built yet
+            raise
+        mod.register_cli(sub)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="specpar", description=(
+        "Distances to stars from MK spectral type and photometry (spectroscopic parallax): "
+        "calibrated absolute magnitudes and intrinsic colours, colour excess, extinction, "
+        "distance modulus and distance with uncertainties."))
+    parser.add_argument("--version", action="version", version=f"specpar {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    p = sub.add_parser("estimate", help="distance for every star of a table",
+                       description="Distance, colour excess and extinction for every row of a table "
+                                   "of classified stars.",
+                       epilog=EPILOG_ESTIMATE, formatter_class=argparse.RawDescriptionHelpFormatter)
+    _add_estimate_options(p)
+    p.set_defaults(func=_cmd_estimate)
+    p = sub.add_parser("calibrations", help="list the calibration tables and their sources")
+    p.set_defaults(func=_cmd_calibrations)
+    p = sub.add_parser("bench", help="time estimate on synthetic rows (Parquet in and out)")
+    p.add_argument("--rows", type=int, default=1_000_000, help="rows for the vectorised run (default 1e6)")
+    p.add_argument("--loop-rows", type=int, default=20_000,
+                   help="rows for the plain per-row Python comparison (default 20000)")
+    p.add_argument("--workdir", default=None, help="folder for the Parquet files (default: a temporary one)")
+    p.set_defaults(func=_cmd_bench)
+    _register_optional(sub)
+    return parser
+
+
+def main(args=None) -> int:
+    """Entry point; returns the exit status."""
+    parser = build_parser()
+    ns = parser.parse_args(args)
+    if not ns.command:
+        parser.print_help()
+        return 2
+    try:
+        return ns.func(ns)
+    except (ValueError, TypeError, OSError, KeyError) as exc:
+        msg = exc.args[0] if isinstance(exc, KeyError) and exc.args else exc
+        print(f"specpar: error: {msg}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("specpar: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,616 @@
+"""``estimate``: distances for a table of classified stars.
+
+Every input row comes out, in order, with its input columns, the fitted
+quantities, a ``flags`` bit mask (see :mod:`specpar.flags`) and a readable
+``note``. The work per star depends only on that row and the options, so a
+catalogue can be split into partitions (e.g. with Dask) without changing any
+result, Monte Carlo draws included (see :mod:`specpar.mcdraws`).
+"""
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field, asdict
+
+import numpy as np
+import pandas as pd
+from astropy.table import Table
+
+from . import __version__
+from .bands import BANDS, BAND_NAMES, CALIBRATION_COLOURS, band_index, chain_matrices
+from .calibration import CalibrationSet, CalibrationValues, default_calibrations
+from .extinction import (DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check_law,
+                         coefficient_derivative, rv_limits)
+from .flags import Flag, SENTENCES, flag_names
+from .mcdraws import normal_draws, row_keys
+from .solver import Observables, SolverResult, dm_to_pc, solve
+from .sptype import parse_sptypes
+
+__all__ = ["estimate", "EstimateOptions", "OUTPUT_COLUMNS"]
+
+#: Documented default photometric error (mag) where none is given (common practice
+#: for catalogue photometry of moderate quality).
+DEFAULT_MAG_ERROR = 0.05
+#: Plausible ranges; values outside are rejected as input errors.
+MAG_RANGE = (-5.0, 35.0)
+COLOUR_RANGE = (-3.0, 15.0)
+CHUNK = 100_000
+_P, _DEP = chain_matrices()
+_COLOUR_RE = re.compile(r"^([A-Za-z]+)-([A-Za-z]+)$")
+
+#: Output columns with units and descriptions (written into table metadata).
+OUTPUT_COLUMNS = {
+    "sptnum": ("", "numeric spectral type (O0=0, B0=10, ..., M0=60)"),
+    "e_sptnum": ("", "subtype uncertainty used, in subclasses"),
+    "lum_class": ("", "luminosity class(es) whose calibration was used"),
+    "mv": ("mag", "absolute V magnitude from the calibration"),
+    "e_mv": ("mag", "intrinsic scatter of M_V used (widened for blended classes)"),
+    "bv0": ("mag", "intrinsic (B-V)_0 from the calibration"),
+    "ebv": ("mag", "colour excess E(B-V), not clipped at zero"),
+    "e_ebv": ("mag", "1-sigma uncertainty of E(B-V)"),
+    "rv": ("", "R_V = A_V / E(B-V) used (fitted when R_V is free)"),
+    "e_rv": ("", "uncertainty of R_V used in the error budget"),
+    "av": ("mag", "V-band extinction A_V = R_V E(B-V)"),
+    "e_av": ("mag", "1-sigma uncertainty of A_V"),
+    "dm": ("mag", "true distance modulus m - M - A = 5 log10(d / 10 pc)"),
+    "e_dm": ("mag", "1-sigma uncertainty of the distance modulus"),
+    "dist_pc": ("pc", "distance, median of its distribution"),
+    "dist_lo_pc": ("pc", "distance, 16th percentile"),
+    "dist_hi_pc": ("pc", "distance, 84th percentile"),
+    "plx_phot_mas": ("mas", "photometric parallax 1000 / dist_pc"),
+    "e_plx_phot_mas": ("mas", "1-sigma uncertainty of the photometric parallax (first order in e_dm)"),
+    "chi2": ("", "chi-square of the fit over all bands"),
+    "dof": ("", "degrees of freedom of chi2"),
+    "n_obs": ("", "number of magnitudes and colours used"),
+    "flags": ("", "bit mask of conditions, see metadata 'flag_bits'"),
+    "flag_codes": ("", "names of the bits set in flags"),
+    "note": ("", "readable reasons for the flags"),
+}
+
+#: Units and descriptions of every column specpar may add (extended by optional modules).
+COLUMN_INFO = dict(OUTPUT_COLUMNS)
+
+
+@dataclass
+class EstimateOptions:
+    """Options of :func:`estimate` (every CLI option has its field here).
+
+    Attributes
+    ----------
+    law : str
+        Extinction law, one of ``specpar.extinction.LAWS``.
+    rv, sigma_rv : float
+        Total-to-selective extinction ratio and its uncertainty.
+    fit_rv : bool
+        Fit R_V per star where the bands constrain it.
+    method : {"analytic", "mc"}
+        First-order propagation or Monte Carlo draws.
+    n_draws, seed : int
+        Monte Carlo settings.
+    default_error : float
+        Photometric error (mag) assumed where none is given (flagged).
+    calibrations : tuple of path
+        User calibration files replacing the shipped table of their class.
+    columns : dict
+        Our column name -> the input's column name (e.g. ``{"V": "Vmag"}``).
+    progress : bool
+        Show a progress bar on long runs.
+    explain : bool
+        Add ``M_<band>`` (absolute magnitude used) and ``A_<band>`` (extinction)
+        for every band the input measures, for worked solutions.
+    plx_offset : float
+        Parallax zero point in mas, subtracted from ``plx`` (corrected = plx - offset).
+    plx_error_scale : float
+        Factor applied to ``e_plx``.
+    tension : float
+        |z| above which photometric and trigonometric parallaxes are flagged.
+    length_scale_pc : float
+        Length scale of the exponentially decreasing space density prior.
+    """
+
+    law: str = DEFAULT_LAW
+    rv: float = DEFAULT_RV
+    sigma_rv: float = 0.2
+    fit_rv: bool = False
+    method: str = "analytic"
+    n_draws: int = 1000
+    seed: int = 0
+    default_error: float = DEFAULT_MAG_ERROR
+    calibrations: tuple = ()
+    columns: dict = field(default_factory=dict)
+    progress: bool = False
+    explain: bool = False
+    plx_offset: float = 0.0
+    plx_error_scale: float = 1.0
+    tension: float = 3.0
+    length_scale_pc: float = 1350.0
+
+    def check(self) -> None:
+        check_law(self.law, self.rv)
+        if self.method not in ("analytic", "mc"):
+            raise ValueError(f"method must be 'analytic' or 'mc', not {self.method!r}")
+        if not (np.isfinite(self.sigma_rv) and self.sigma_rv >= 0):
+            raise ValueError(f"sigma_rv must be >= 0, got {self.sigma_rv}")
+        if not (np.isfinite(self.default_error) and self.default_error > 0):
+            raise ValueError(f"default_error must be > 0 mag, got {self.default_error}")
+        if not (np.isfinite(self.plx_error_scale) and self.plx_error_scale > 0):
+            raise ValueError(f"plx_error_scale must be > 0, got {self.plx_error_scale}")
+        if not np.isfinite(self.plx_offset):
+            raise ValueError(f"plx_offset must be a finite number of mas, got {self.plx_offset}")
+        if not (np.isfinite(self.tension) and self.tension > 0):
+            raise ValueError(f"tension threshold must be > 0, got {self.tension}")
+        if not (np.isfinite(self.length_scale_pc) and self.length_scale_pc > 0):
+            raise ValueError(f"length_scale_pc must be > 0, got {self.length_scale_pc}")
+        if self.method == "mc" and not (isinstance(self.n_draws, (int, np.integer)) and self.n_draws >= 10):
+            raise ValueError(f"n_draws must be an integer >= 10, got {self.n_draws}")
+
+
+# ----------------------------------------------------------------------------- input
+
+@dataclass
+class _Prepared:
+    frame: pd.DataFrame
+    obs: Observables
+    obs_names: list
+    flags: np.ndarray
+    rejected: np.ndarray  # (N,) bit mask over observables
+    defaulted: np.ndarray
+    parsed: pd.DataFrame
+    parse_codes: np.ndarray
+
+
+def _to_frame(table) -> pd.DataFrame:
+    if isinstance(table, pd.DataFrame):
+        return table.reset_index(drop=True)
+    if isinstance(table, Table):
+        cols = {}
+        for name in table.colnames:
+            col = table[name]
+            if getattr(col, "ndim", 1) != 1:
+                continue  # multidimensional columns are carried through untouched
+            data = np.ma.asarray(col)
+            if data.dtype.kind in "fc":
+                cols[name] = np.ma.filled(data.astype(float), np.nan)
+            else:
+                vals = np.ma.filled(data.astype(object), None) if np.ma.isMaskedArray(data) else data.astype(object)
+                cols[name] = vals
+        return pd.DataFrame(cols)
+    raise TypeError(f"estimate() takes an astropy Table or a pandas DataFrame, not {type(table).__name__}")
+
+
+def _numeric(series: pd.Series):
+    """Float values and a mask of entries that were given but not usable numbers."""
+    if series.dtype.kind in "fiub":
+        vals = series.to_numpy(dtype=float)
+        given = ~np.isnan(vals)  # NaN means not measured; inf is a bad value
+    else:
+        s = series.astype(object)
+        given = s.map(lambda v: v is not None and not (isinstance(v, float) and np.isnan(v))
+                      and str(v).strip() not in ("", "--", "nan", "NaN")).to_numpy(bool)
+        vals = pd.to_numeric(s.map(lambda v: str(v).strip() if isinstance(v, (str, bytes)) else v),
+                             errors="coerce").to_numpy(dtype=float)
+    bad = given & ~np.isfinite(vals)
+    vals = np.where(np.isfinite(vals), vals, np.nan)
+    return vals, bad
+
+
+def _observable_columns(frame: pd.DataFrame):
+    """(name, L row) for every magnitude and colour column present."""
+    out = []
+    for b in BAND_NAMES:
+        if b in frame.columns:
+            row = np.zeros(len(BANDS))
+            row[band_index(b)] = 1.0
+            out.append((b, row))
+    for col in frame.columns:
+        m = _COLOUR_RE.match(str(col))
+        if m and m[1] in BAND_NAMES and m[2] in BAND_NAMES and m[1] != m[2]:
+            row = np.zeros(len(BANDS))
+            row[band_index(m[1])] += 1.0
+            row[band_index(m[2])] -= 1.0
+            out.append((str(col), row))
+    return out
+
+
+def _prepare(frame_in: pd.DataFrame, opts: EstimateOptions) -> _Prepared:
+    rename = {theirs: ours for ours, theirs in opts.columns.items()}
+    missing = [t for t in rename if t not in frame_in.columns]
+    if missing:
+        raise ValueError(f"column(s) {', '.join(map(repr, missing))} named in the column mapping "
+                         f"are not in the input; it has {', '.join(map(str, frame_in.columns))}")
+    frame = frame_in.rename(columns=rename)
+    N = len(frame)
+    if "sptype" not in frame.columns:
+        raise ValueError("the input has no 'sptype' column; name yours with columns={'sptype': ...} "
+                         "(CLI: --col sptype=YOURNAME)")
+    specs = _observable_columns(frame)
+    if not specs:
+        raise ValueError("the input has no photometry columns; expected any of "
+                         f"{', '.join(BAND_NAMES)} or colours such as B-V (map yours with --col)")
+    flags = np.zeros(N, np.int64)
+    K = len(specs)
+    y = np.full((N, K), np.nan)
+    sig = np.full((N, K), np.nan)
+    rejected = np.zeros(N, np.int64)
+    defaulted = np.zeros(N, np.int64)
+    for k, (name, row) in enumerate(specs):
+        vals, bad = _numeric(frame[name])
+        lo, hi = MAG_RANGE if row.sum() != 0 else COLOUR_RANGE
+        with np.errstate(invalid="ignore"):
+            bad |= (vals < lo) | (vals > hi)
+        vals = np.where(bad, np.nan, vals)
+        ecol = f"e_{name}"
+        if ecol in frame.columns:
+            errs, ebad = _numeric(frame[ecol])
+            with np.errstate(invalid="ignore"):
+                ebad |= errs > 5.0
+            errs = np.where(ebad, np.nan, errs)
+        else:
+            errs = np.full(N, np.nan)
+        with np.errstate(invalid="ignore"):
+            need = np.isfinite(vals) & ~(errs > 0)
+        errs = np.where(need, opts.default_error, errs)
+        rejected |= bad.astype(np.int64) << k
+        defaulted |= need.astype(np.int64) << k
+        y[:, k], sig[:, k] = vals, errs
+    # a colour column is used only where its two magnitudes are not both measured
+    mag_ok = {name: np.isfinite(y[:, k]) for k, (name, row) in enumerate(specs) if row.sum() != 0}
+    for k, (name, row) in enumerate(specs):
+        m = _COLOUR_RE.match(name)
+        if m and m[1] in mag_ok and m[2] in mag_ok:
+            both = mag_ok[m[1]] & mag_ok[m[2]]
+            y[both, k] = np.nan
+            defaulted[both] &= ~np.int64(1 << k)
+    flags |= np.where(rejected != 0, int(Flag.PHOT_REJECTED), 0)
+    flags |= np.where(defaulted != 0, int(Flag.ERROR_DEFAULTED), 0)
+    codes, uniques = pd.factorize(frame["sptype"].map(lambda v: v if isinstance(v, str) else None),
+                                  use_na_sentinel=True)
+    parsed = parse_sptypes(list(uniques) + [None])
+    codes = np.where(codes < 0, len(uniques), codes)
+    L = np.stack([row for _, row in specs])
+    return _Prepared(frame, Observables(y, sig, L), [n for n, _ in specs], flags, rejected,
+                     defaulted, parsed, codes)
+
+
+# ----------------------------------------------------------------------------- solving
+
+def _free_rv(obs, cal, e_spt, law, sigma_rv_prior):
+    """Per-star R_V from the chi-square profile on a grid (vectorised over stars)."""
+    lo, hi = rv_limits(law)
+    grid = np.round(np.arange(lo, hi + 1e-9, 0.1), 3)
+    coeffs = band_coefficients(law, grid)
+    chi2 = np.empty((len(grid), obs.y.shape[0]))
+    for i, R in enumerate(coeffs):  # loop over the R_V grid, not over stars
+        r = solve(obs, cal.absmag, cal.dabsmag, e_spt, cal.var_mv, cal.var_colour, R, 0 * R)
+        chi2[i] = np.nan_to_num(r.chi2, nan=np.inf)
+    i0 = np.clip(np.argmin(chi2, axis=0), 1, len(grid) - 2)
+    n = np.arange(chi2.shape[1])
+    c_m, c_0, c_p = chi2[i0 - 1, n], chi2[i0, n], chi2[i0 + 1, n]
+    curv = (c_p - 2 * c_0 + c_m) / 0.01  # second derivative per unit R_V^2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shift = np.where(curv > 0, -0.5 * (c_p - c_m) / 0.1 / curv, 0.0)
+        e_rv = np.sqrt(2.0 / curv)
+    rv = np.clip(grid[i0] + np.clip(shift, -0.1, 0.1), lo, hi)
+    return rv, np.where(np.isfinite(e_rv), e_rv, np.inf)
+
+
+def _coefficients_at(law, rv):
+    """Extinction coefficients and derivatives at per-star R_V (interpolated on a grid)."""
+    lo, hi = rv_limits(law)
+    grid = np.round(np.arange(lo, hi + 1e-9, 0.05), 3)
+    tab = band_coefficients(law, grid)
+    R = np.stack([np.interp(rv, grid, tab[:, b]) for b in range(len(BANDS))], axis=-1)
+    dtab = np.gradient(tab, grid, axis=0)
+    dR = np.stack([np.interp(rv, grid, dtab[:, b]) for b in range(len(BANDS))], axis=-1)
+    return R, dR
+
+
+def _solve_chunk(obs, cal, e_spt, opts):
+    N = obs.y.shape[0]
+    rv = np.full(N, float(opts.rv))
+    sig_rv = np.full(N, float(opts.sigma_rv))
+    rv_flag = np.zeros(N, bool)
+    if opts.fit_rv:
+        rv_fit, e_fit = _free_rv(obs, cal, e_spt, opts.law, opts.sigma_rv)
+        base = solve(obs, cal.absmag, cal.dabsmag, e_spt, cal.var_mv, cal.var_colour,
+                     band_coefficients(opts.law, opts.rv), coefficient_derivative(opts.law, opts.rv),
+                     opts.sigma_rv, opts.rv)
+        n_mag = (np.isfinite(obs.y) & obs.is_magnitude).sum(axis=1)
+        ok = (e_fit < 1.0) & (n_mag >= 3) & (base.ebv > 3 * base.e_ebv)
+        rv = np.where(ok, rv_fit, rv)
+        sig_rv = np.where(ok, e_fit, sig_rv)
+        rv_flag = ~ok
+    R, dR = _coefficients_at(opts.law, rv)
+    res = solve(obs, cal.absmag, cal.dabsmag, e_spt, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv)
+    return res, rv_flag
+
+
+def _monte_carlo(obs, cal, cals, sptnum, e_spt, lcb, lcf, keys, res, opts):
+    """Monte Carlo: redraw photometry, subtype, M_V and colour scatter and R_V; refit."""
+    N, K = obs.y.shape
+    n = opts.n_draws
+    out = {k: np.full(N, np.nan) for k in ("dm", "e_dm", "ebv", "e_ebv", "d50", "d16", "d84", "corr")}
+    step = max(1, 200_000 // n)
+    comp = iter(range(1, 10_000))
+    z_phot = [normal_draws(keys, opts.seed, next(comp), n) for _ in range(K)]
+    z_mv = normal_draws(keys, opts.seed, next(comp), n)
+    z_col = [normal_draws(keys, opts.seed, next(comp), n) for _ in CALIBRATION_COLOURS]
+    z_spt = normal_draws(keys, opts.seed, next(comp), n)
+    z_rv = normal_draws(keys, opts.seed, next(comp), n)
+    lo_rv, hi_rv = rv_limits(opts.law)
+    for s in range(0, N, step):
+        sl = slice(s, min(N, s + step))
+        m = sl.stop - sl.start
+        rep = lambda a: np.repeat(a[sl], n, axis=0)  # noqa: E731
+        spt_d = (sptnum[sl, None] + e_spt[sl, None] * z_spt[sl]).ravel()
+        cv = cals.evaluate(spt_d, rep(lcb), rep(lcf))
+        linear = ~np.isin(rep(lcb), list(cals.by_class))  # e.g. period-luminosity rows
+        if linear.any():
+            shift = (spt_d - np.repeat(sptnum[sl], n))[linear]
+            cv.absmag[linear] = rep(cal.absmag)[linear] + rep(cal.dabsmag)[linear] * shift[:, None]
+        dmv = (np.sqrt(np.nan_to_num(cal.var_mv[sl]))[:, None] * z_mv[sl]).ravel()
+        dcol = np.stack([(np.sqrt(np.nan_to_num(cal.var_colour[sl, c]))[:, None] * z_col[c][sl]).ravel()
+                         for c in range(len(CALIBRATION_COLOURS))], axis=-1)
+        absmag = cv.absmag + dmv[:, None] + dcol @ _P.T
+        rv_d = np.clip((res.rv[sl, None] + res.e_rv[sl, None] * z_rv[sl]).ravel(), lo_rv, hi_rv)
+        R, _ = _coefficients_at(opts.law, rv_d)
+        y_d = np.stack([(obs.y[sl, k, None] + obs.sigma[sl, k, None] * z_phot[k][sl]).ravel()
+                        for k in range(K)], axis=-1)
+        sig_d = np.repeat(obs.sigma[sl], n, axis=0)
+        o = Observables(y_d, sig_d, obs.L)
+        # weights: the analytic covariance at the star's nominal type (fixed over draws)
+        r = solve(o, absmag, rep(cal.dabsmag), rep(e_spt), rep(cal.var_mv), rep(cal.var_colour),
+                  R, 0 * R)
+        used_nominal = np.repeat(res.n_used[sl], n)
+        bad = (r.n_used != used_nominal)  # a draw left the calibrated range for some band
+        dm = np.where(bad, np.nan, r.dm).reshape(m, n)
+        eb = np.where(bad, np.nan, r.ebv).reshape(m, n)
+        with np.errstate(invalid="ignore"), np.testing.suppress_warnings() as sup:
+            sup.filter(RuntimeWarning)
+            out["dm"][sl] = np.nanmean(dm, axis=1)
+            out["e_dm"][sl] = np.nanstd(dm, axis=1)
+            out["ebv"][sl] = np.nanmean(eb, axis=1)
+            out["e_ebv"][sl] = np.nanstd(eb, axis=1)
+            d = dm_to_pc(dm)
+            out["d16"][sl], out["d50"][sl], out["d84"][sl] = np.nanpercentile(d, [16, 50, 84], axis=1)
+            dmc, ebc = dm - out["dm"][sl, None], eb - out["ebv"][sl, None]
+            out["corr"][sl] = np.nanmean(dmc * ebc, axis=1) / (out["e_dm"][sl] * out["e_ebv"][sl])
+    return out
+
+
+# ----------------------------------------------------------------------------- output
+
+def _notes(flags, parsed_detail, rejected, defaulted, obs_names):
+    """Readable note per row, built once per distinct combination."""
+    key = pd.DataFrame({"f": flags, "d": parsed_detail, "r": rejected, "x": defaulted})
+    codes, uniq = pd.factorize(pd.MultiIndex.from_frame(key))
+    texts = []
+    for f, d, r, x in uniq:
+        parts = [SENTENCES[b] for b in Flag if f & b]
+        if r:
+            parts.append("rejected: " + ", ".join(n for k, n in enumerate(obs_names) if r >> k & 1))
+        if x:
+            parts.append("default error used for: " + ", ".join(n for k, n in enumerate(obs_names) if x >> k & 1))
+        if d:
+            parts.append(d)
+        texts.append("; ".join(parts))
+    names = [",".join(flag_names(int(f))) for f, *_ in uniq]
+    return np.array(texts, dtype=object)[codes], np.array(names, dtype=object)[codes]
+
+
+def _metadata(opts, cals, obs_names):
+    return {
+        "specpar_version": __version__,
+        "method": opts.method,
+        "n_draws": int(opts.n_draws) if opts.method == "mc" else None,
+        "seed": int(opts.seed) if opts.method == "mc" else None,
+        "extinction_law": opts.law,
+        "extinction_law_reference": LAWS[opts.law][1],
+        "R_V": float(opts.rv),
+        "sigma_R_V": float(opts.sigma_rv),
+        "R_V_free": bool(opts.fit_rv),
+        "band_coefficients_A_over_EBV": {b: round(float(c), 4) for b, c in
+                                          zip(BAND_NAMES, band_coefficients(opts.law, opts.rv))},
+        "calibrations": cals.describe(),
+        "default_error_mag": float(opts.default_error),
+        "observables_used": list(obs_names),
+        "flag_bits": {f.name: int(f) for f in Flag},
+        "assumptions": (
+            "Absolute magnitudes and intrinsic colours are mean relations for each spectral type and "
+            "luminosity class; single stars, solar-neighbourhood metallicity and one extinction law "
+            "with a single R_V along the line of sight are assumed. Systematic errors of tens of per "
+            "cent in distance are typical of spectroscopic parallaxes."),
+        "columns": {k: v[1] for k, v in COLUMN_INFO.items()},
+    }
+
+
+def estimate(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, sigma_rv=0.2, fit_rv=False,
+             method="analytic", n_draws=1000, seed=0, default_error=DEFAULT_MAG_ERROR,
+             calibrations=(), columns=None, progress=False, explain=False, plx_offset=0.0,
+             plx_error_scale=1.0, tension=3.0, length_scale_pc=1350.0):
+    """Spectroscopic-parallax distances for every row of a table.
+
+    Parameters
+    ----------
+    table : astropy.table.Table or pandas.DataFrame
+        Columns: ``sptype`` (MK type), any of the magnitudes
+        ``U B V Rc Ic J H Ks G BP RP`` with errors ``e_<band>``, and/or colours
+        such as ``B-V`` with ``e_B-V``. Other columns are carried through.
+    law : str
+        Extinction law (``CCM89``, ``O94``, ``F99``, ``F19``, ``G23``); default F99.
+    rv, sigma_rv : float
+        R_V and its uncertainty (default 3.1 +- 0.2).
+    fit_rv : bool
+        Fit R_V where at least three magnitudes and a clear reddening constrain it.
+    method : {"analytic", "mc"}
+        Error propagation: first order (default) or Monte Carlo.
+    n_draws, seed : int
+        Monte Carlo draws per star and seed; the same seed gives the same output.
+    default_error : float
+        Error (mag) assumed for a magnitude given without one (flagged).
+    calibrations : sequence of path
+        Calibration files replacing the shipped table of their luminosity class.
+    columns : dict, optional
+        Our column names to yours, e.g. ``{"V": "Vmag", "sptype": "SpT"}``.
+    progress : bool
+        Progress bar (tqdm) on long runs.
+    explain : bool
+        Also return ``M_<band>`` and ``A_<band>`` for the bands measured.
+    plx_offset, plx_error_scale, tension, length_scale_pc : float
+        Parallax cross-check settings, used when the input has ``plx`` and
+        ``e_plx`` (mas): zero point subtracted, error inflation, |z| threshold,
+        length scale of the space-density prior (pc).
+
+    Returns
+    -------
+    astropy.table.Table or pandas.DataFrame
+        Same type as ``table``: the input columns then the results
+        (see :data:`OUTPUT_COLUMNS`); assumptions in ``meta`` (``attrs`` for pandas).
+
+    References
+    ----------
+    Pogson 1856, MNRAS 17, 12 (magnitude scale); the calibration and extinction
+    references are listed in the output metadata.
+    """
+    opts = EstimateOptions(law=law, rv=rv, sigma_rv=sigma_rv, fit_rv=fit_rv, method=method,
+                           n_draws=n_draws, seed=seed, default_error=default_error,
+                           calibrations=tuple(calibrations or ()), columns=dict(columns or {}),
+                           progress=progress, explain=explain, plx_offset=plx_offset,
+                           plx_error_scale=plx_error_scale, tension=tension,
+                           length_scale_pc=length_scale_pc)
+    return run_estimate(table, opts)
+
+
+def run_estimate(table, opts: EstimateOptions):
+    """:func:`estimate` with an :class:`EstimateOptions`."""
+    opts.check()
+    cals = CalibrationSet(opts.calibrations) if opts.calibrations else default_calibrations()
+    frame = _to_frame(table)
+    prep = _prepare(frame, opts)
+    N = len(frame)
+    p = prep.parsed
+    # calibration read once per distinct spectral type, then spread over rows
+    ucal = cals.evaluate(p["sptnum"].to_numpy(float), p["lc_bright"].to_numpy(object),
+                         p["lc_faint"].to_numpy(object))
+    c = prep.parse_codes
+    sptnum = p["sptnum"].to_numpy(float)[c]
+    e_spt = p["e_sptnum"].to_numpy(float)[c]
+    lcb = p["lc_bright"].to_numpy(object)[c]
+    lcf = p["lc_faint"].to_numpy(object)[c]
+    flags = prep.flags | p["flags"].to_numpy(np.int64)[c]
+    outside = np.isfinite(p["sptnum"].to_numpy(float)) & ~np.isfinite(ucal.absmag[:, 0])
+    flags |= np.where(outside[c], int(Flag.TYPE_OUTSIDE_CALIBRATION), 0)
+    detail = p["detail"].to_numpy(object)[c]
+    if "period_d" in prep.frame.columns:
+        # pulsating stars: absolute magnitudes from a period-luminosity relation instead
+        from .cepheid import cepheid_calibration
+        cep = cepheid_calibration(prep.frame, opts)
+        rows = np.flatnonzero(cep.mask)
+        if rows.size:
+            n_u = len(ucal.var_mv)
+            ucal = CalibrationValues(*(np.concatenate([getattr(ucal, f), getattr(cep.values, f)])
+                                       for f in CalibrationValues.FIELDS))
+            c = c.copy()
+            c[rows] = n_u + np.arange(rows.size)
+            sptnum[rows], e_spt[rows] = 0.0, 1.0
+            lcb[rows] = lcf[rows] = cep.label
+            flags[rows] = prep.flags[rows]  # the spectral type is not used for these rows
+            detail[rows] = ""
+        flags |= cep.flags
+        detail = np.where(cep.detail != "", cep.detail, detail)
+
+    res_parts, rvflag_parts = [], []
+    chunks = range(0, max(N, 1), CHUNK)
+    if opts.progress and N > CHUNK:
+        from tqdm.auto import tqdm
+        chunks = tqdm(chunks, total=len(chunks), unit="chunk", desc="specpar estimate")
+    for s in chunks:
+        sl = slice(s, min(N, s + CHUNK))
+        cal = CalibrationValues(*(getattr(ucal, f)[c[sl]] for f in CalibrationValues.FIELDS))
+        obs = Observables(prep.obs.y[sl], prep.obs.sigma[sl], prep.obs.L)
+        r, rvf = _solve_chunk(obs, cal, e_spt[sl], opts)
+        if opts.method == "mc":
+            keys = row_keys(frame.iloc[sl])
+            r.mc = _monte_carlo(obs, cal, cals, sptnum[sl], e_spt[sl], lcb[sl], lcf[sl], keys, r, opts)
+        res_parts.append(r)
+        rvflag_parts.append(rvf)
+    cat = lambda name: np.concatenate([getattr(r, name) for r in res_parts]) if res_parts else np.zeros(0)  # noqa: E731
+    dm, e_dm, ebv, e_ebv = cat("dm"), cat("e_dm"), cat("ebv"), cat("e_ebv")
+    rv_used, e_rv = cat("rv"), cat("e_rv")
+    if opts.method == "mc" and res_parts:
+        mc = {k: np.concatenate([r.mc[k] for r in res_parts]) for k in res_parts[0].mc}
+        dm, e_dm, ebv, e_ebv = mc["dm"], mc["e_dm"], mc["ebv"], mc["e_ebv"]
+        d50, d16, d84 = mc["d50"], mc["d16"], mc["d84"]
+    else:
+        d50, d16, d84 = dm_to_pc(dm), dm_to_pc(dm - e_dm), dm_to_pc(dm + e_dm)
+    n_used, colour_known = cat("n_used"), cat("colour_known")
+    chi2, dof = cat("chi2"), np.maximum(cat("dof"), 0)
+    nodist = ~np.isfinite(dm)
+    flags |= np.where(nodist, int(Flag.NO_DISTANCE), 0)
+    flags |= np.where(~nodist & ~colour_known, int(Flag.EBV_ASSUMED_ZERO), 0)
+    typed = np.isfinite(ucal.absmag[:, 0])[c]
+    flags |= np.where(cat("uncalibrated") & typed, int(Flag.BAND_UNCALIBRATED), 0)
+    with np.errstate(invalid="ignore"):
+        flags |= np.where(colour_known & (ebv + 3 * e_ebv < 0), int(Flag.EBV_NEGATIVE), 0)
+        pval = np.concatenate([r.p_value() for r in res_parts]) if res_parts else np.zeros(0)
+        flags |= np.where(pval < 1e-3, int(Flag.BANDS_DISAGREE), 0)
+    if opts.fit_rv and res_parts:
+        flags |= np.where(np.concatenate(rvflag_parts) & ~nodist, int(Flag.RV_UNCONSTRAINED), 0)
+    av = rv_used * ebv
+    e_av = np.sqrt((rv_used * e_ebv) ** 2 + (ebv * e_rv) ** 2)
+    plx = 1000.0 / d50
+    e_plx = plx * np.log(10) / 5.0 * e_dm
+    iV, iB = band_index("V"), CALIBRATION_COLOURS.index("B-V")
+    ucal_mv = ucal.absmag[:, iV][c]
+    lum = np.where(lcb == lcf, lcb, lcb.astype(str) + "-" + lcf.astype(str))
+    results = {
+        "sptnum": sptnum, "e_sptnum": e_spt, "lum_class": lum.astype(str),
+        "mv": ucal_mv, "e_mv": np.sqrt(ucal.var_mv)[c], "bv0": ucal.colours[:, iB][c],
+        "ebv": ebv, "e_ebv": e_ebv, "rv": rv_used, "e_rv": e_rv, "av": av, "e_av": e_av,
+        "dm": dm, "e_dm": e_dm, "dist_pc": d50, "dist_lo_pc": d16, "dist_hi_pc": d84,
+        "plx_phot_mas": plx, "e_plx_phot_mas": e_plx, "chi2": chi2, "dof": dof,
+        "n_obs": n_used,
+    }
+    for k in ("mv", "e_mv", "bv0", "ebv", "e_ebv", "av", "e_av", "dm", "e_dm", "dist_pc",
+              "dist_lo_pc", "dist_hi_pc", "plx_phot_mas", "e_plx_phot_mas", "chi2"):
+        results[k] = np.where(nodist & (k not in ("mv", "e_mv", "bv0")), np.nan, results[k])
+    if "plx" in prep.frame.columns:
+        # trigonometric parallaxes: tension, diagnosis and combined distance
+        from .parallax import COLUMNS as plx_columns, crosscheck
+        COLUMN_INFO.update(plx_columns)
+        extra, pflags, pdetail = crosscheck(prep.frame, results, cals=cals, sptnum=sptnum,
+                                            lc_bright=lcb, lc_faint=lcf, opts=opts)
+        results.update(extra)
+        flags |= pflags
+        detail = np.where(pdetail != "", np.where(detail != "", detail + "; ", "") + pdetail, detail)
+    note, codes = _notes(flags, detail, prep.rejected, prep.defaulted, prep.obs_names)
+    results.update(flags=flags, flag_codes=codes.astype(str), note=note.astype(str))
+    if opts.explain:
+        R_rows, _ = _coefficients_at(opts.law, rv_used)
+        touched = np.flatnonzero((prep.obs.L != 0).any(axis=0))
+        for b in touched:
+            name = BAND_NAMES[b]
+            results[f"M_{name}"] = ucal.absmag[:, b][c]
+            results[f"A_{name}"] = np.where(nodist, np.nan, ebv * R_rows[:, b])
+    meta = _metadata(opts, cals, prep.obs_names)
+    return _assemble(table, frame, results, meta)
+
+
+def _assemble(table, frame, results, meta):
+    clash = [k for k in results if k in frame.columns]
+    if isinstance(table, pd.DataFrame):
+        out = table.reset_index(drop=True).rename(columns={k: f"input_{k}" for k in clash})
+        for k, v in results.items():
+            out[k] = v
+        out.attrs["specpar"] = meta
+        return out
+    out = Table(table, copy=True)
+    for k in clash:
+        out.rename_column(k, f"input_{k}")
+    for k, v in results.items():
+        unit, desc = COLUMN_INFO.get(k) or ("mag", f"{'absolute magnitude' if k[0] == 'M' else 'extinction'} in {k[2:]}")
+        out[k] = v
+        out[k].description = desc
+        if unit:
+            out[k].unit = unit
+    out.meta["specpar"] = meta
+    return out

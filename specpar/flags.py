@@ -1,0 +1,85 @@
+"""Row flags: one bit per condition, each with a machine name and a sentence.
+
+The ``flags`` output column is the bitwise OR of the bits below; the ``note``
+column joins the sentences of the bits that are set (plus row details).
+"""
+from __future__ import annotations
+
+import enum
+
+import numpy as np
+
+__all__ = ["Flag", "describe", "flag_names"]
+
+
+class Flag(enum.IntFlag):
+    """Conditions a row can carry. Values are stable: they are written to files."""
+
+    NO_LUMCLASS = 1 << 0
+    TYPE_UNREADABLE = 1 << 1
+    TYPE_UNSUPPORTED = 1 << 2
+    TYPE_OUTSIDE_CALIBRATION = 1 << 3
+    PECULIAR = 1 << 4
+    TYPE_UNCERTAIN = 1 << 5
+    ERROR_DEFAULTED = 1 << 6
+    PHOT_REJECTED = 1 << 7
+    NO_DISTANCE = 1 << 8
+    EBV_ASSUMED_ZERO = 1 << 9
+    EBV_NEGATIVE = 1 << 10
+    BANDS_DISAGREE = 1 << 11
+    NO_SUBTYPE = 1 << 12
+    BAND_UNCALIBRATED = 1 << 13
+    RV_UNCONSTRAINED = 1 << 14
+    # parallax cross-check (bits 16-23)
+    PLX_TENSION = 1 << 16
+    PLX_REJECTED = 1 << 17
+    PLX_LOW_SNR = 1 << 18
+    PLX_UNITS_SUSPECT = 1 << 19
+    # period-luminosity rows (bits 24-27)
+    PERIOD_OUT_OF_RANGE = 1 << 24
+    PERIOD_INVALID = 1 << 25
+    MODE_UNKNOWN = 1 << 26
+
+
+SENTENCES = {
+    Flag.NO_LUMCLASS: "no luminosity class given: dwarf (V) assumed",
+    Flag.TYPE_UNREADABLE: "spectral type could not be read",
+    Flag.TYPE_UNSUPPORTED: "spectral type not covered by any calibration (not extrapolated)",
+    Flag.TYPE_OUTSIDE_CALIBRATION: "spectral type outside the calibrated range of its luminosity class",
+    Flag.PECULIAR: "peculiarity suffix present: the mean calibration may not apply",
+    Flag.TYPE_UNCERTAIN: "type marked uncertain: subtype uncertainty widened to 1 subclass",
+    Flag.ERROR_DEFAULTED: "missing or non-positive photometric error replaced by the default",
+    Flag.PHOT_REJECTED: "non-numeric, non-finite or implausible photometry ignored",
+    Flag.NO_DISTANCE: "no distance: not enough usable photometry or calibration",
+    Flag.EBV_ASSUMED_ZERO: "only one band: E(B-V) not measured, assumed 0",
+    Flag.EBV_NEGATIVE: "E(B-V) significantly negative (more than 3 sigma below 0): check type or photometry",
+    Flag.BANDS_DISAGREE: "bands disagree with the calibration (chi-square p < 0.001)",
+    Flag.NO_SUBTYPE: "no subtype given: mid-class assumed with a wide uncertainty",
+    Flag.BAND_UNCALIBRATED: "a band has no calibration for this type and was left out",
+    Flag.RV_UNCONSTRAINED: "R_V could not be fitted from these bands: the fixed value was used",
+    Flag.PLX_TENSION: "photometric and trigonometric parallaxes disagree",
+    Flag.PLX_REJECTED: "parallax or its error unusable and ignored",
+    Flag.PLX_LOW_SNR: "parallax error above 10-20 % of the parallax: 1/parallax is a biased distance (Lutz & Kelker 1973)",
+    Flag.PLX_UNITS_SUSPECT: "parallaxes look like arcsec, not mas: check units",
+    Flag.PERIOD_OUT_OF_RANGE: "pulsation period outside the calibrated range (not extrapolated)",
+    Flag.PERIOD_INVALID: "pulsation period is zero, negative or not a number",
+    Flag.MODE_UNKNOWN: "pulsation mode not recognised",
+}
+
+
+def flag_names(value: int) -> list[str]:
+    """Machine names of the bits set in ``value``."""
+    return [f.name for f in Flag if value & f]
+
+
+def describe(value: int) -> str:
+    """Readable sentence list for the bits set in ``value``."""
+    return "; ".join(SENTENCES[f] for f in Flag if value & f)
+
+
+def describe_array(values: np.ndarray) -> np.ndarray:
+    """Vectorised :func:`describe`: one sentence string per row, built per distinct value."""
+    values = np.asarray(values, dtype=np.int64)
+    uniq, inverse = np.unique(values, return_inverse=True)
+    texts = np.array([describe(int(v)) for v in uniq], dtype=object)
+    return texts[inverse.ravel()]

@@ -13,7 +13,7 @@ from dataclasses import dataclass, field, asdict
 
 import numpy as np
 import pandas as pd
-from astropy.table import Table
+from astropy.table import Column, Table
 
 from . import __version__
 from .bands import BANDS, BAND_NAMES, CALIBRATION_COLOURS, band_index, chain_matrices
@@ -262,8 +262,7 @@ def _prepare(frame_in: pd.DataFrame, opts: EstimateOptions) -> _Prepared:
             defaulted[both] &= ~np.int64(1 << k)
     flags |= np.where(rejected != 0, int(Flag.PHOT_REJECTED), 0)
     flags |= np.where(defaulted != 0, int(Flag.ERROR_DEFAULTED), 0)
-    codes, uniques = pd.factorize(frame["sptype"].map(lambda v: v if isinstance(v, str) else None),
-                                  use_na_sentinel=True)
+    codes, uniques = pd.factorize(frame["sptype"], use_na_sentinel=True)
     parsed = parse_sptypes(list(uniques) + [None])
     codes = np.where(codes < 0, len(uniques), codes)
     L = np.stack([row for _, row in specs])
@@ -319,7 +318,10 @@ def _solve_chunk(obs, cal, e_spt, opts):
         rv = np.where(ok, rv_fit, rv)
         sig_rv = np.where(ok, e_fit, sig_rv)
         rv_flag = ~ok
-    R, dR = _coefficients_at(opts.law, rv)
+    if opts.fit_rv:
+        R, dR = _coefficients_at(opts.law, rv)
+    else:
+        R, dR = band_coefficients(opts.law, opts.rv), coefficient_derivative(opts.law, opts.rv)
     res = solve(obs, cal.absmag, cal.dabsmag, e_spt, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv)
     return res, rv_flag
 
@@ -379,12 +381,22 @@ def _monte_carlo(obs, cal, cals, sptnum, e_spt, lcb, lcf, keys, res, opts):
 
 # ----------------------------------------------------------------------------- output
 
+def _combine_codes(*arrays) -> np.ndarray:
+    """One integer code per distinct combination of the given per-row keys."""
+    code = np.zeros(len(arrays[0]), np.int64)
+    for a in arrays:
+        k, u = pd.factorize(a)
+        code, _ = pd.factorize(code * (len(u) + 1) + k)
+    return code
+
+
 def _notes(flags, parsed_detail, rejected, defaulted, obs_names):
-    """Readable note per row, built once per distinct combination."""
-    key = pd.DataFrame({"f": flags, "d": parsed_detail, "r": rejected, "x": defaulted})
-    codes, uniq = pd.factorize(pd.MultiIndex.from_frame(key))
-    texts = []
-    for f, d, r, x in uniq:
+    """Readable note and flag names per row, built once per distinct combination."""
+    codes = _combine_codes(flags, parsed_detail, rejected, defaulted)
+    first = np.unique(codes, return_index=True)[1]
+    texts, names = [], []
+    for i in first:
+        f, d, r, x = int(flags[i]), parsed_detail[i], int(rejected[i]), int(defaulted[i])
         parts = [SENTENCES[b] for b in Flag if f & b]
         if r:
             parts.append("rejected: " + ", ".join(n for k, n in enumerate(obs_names) if r >> k & 1))
@@ -393,7 +405,7 @@ def _notes(flags, parsed_detail, rejected, defaulted, obs_names):
         if d:
             parts.append(d)
         texts.append("; ".join(parts))
-    names = [",".join(flag_names(int(f))) for f, *_ in uniq]
+        names.append(",".join(flag_names(f)))
     return np.array(texts, dtype=object)[codes], np.array(names, dtype=object)[codes]
 
 
@@ -583,7 +595,7 @@ def run_estimate(table, opts: EstimateOptions):
         flags |= pflags
         detail = np.where(pdetail != "", np.where(detail != "", detail + "; ", "") + pdetail, detail)
     note, codes = _notes(flags, detail, prep.rejected, prep.defaulted, prep.obs_names)
-    results.update(flags=flags, flag_codes=codes.astype(str), note=note.astype(str))
+    results.update(flags=flags, flag_codes=codes, note=note)
     if opts.explain:
         R_rows, _ = _coefficients_at(opts.law, rv_used)
         touched = np.flatnonzero((prep.obs.L != 0).any(axis=0))
@@ -608,7 +620,7 @@ def _assemble(table, frame, results, meta):
         out.rename_column(k, f"input_{k}")
     for k, v in results.items():
         unit, desc = COLUMN_INFO.get(k) or ("mag", f"{'absolute magnitude' if k[0] == 'M' else 'extinction'} in {k[2:]}")
-        out[k] = v
+        out[k] = Column(v, dtype=object) if v.dtype.kind == "O" else v
         out[k].description = desc
         if unit:
             out[k].unit = unit

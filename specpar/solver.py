@@ -84,7 +84,7 @@ def _calibration_cov(obs: Observables, absmag_deriv, e_sptnum, var_mv, var_colou
     LP = L @ _P  # (K, n_colours)
     ld = np.nan_to_num(absmag_deriv) @ L.T  # (N, K)
     cov = var_mv[:, None, None] * np.outer(l1, l1)[None]
-    cov += np.einsum("kc,nc,jc->nkj", LP, np.nan_to_num(var_colour), LP)
+    cov += (np.nan_to_num(var_colour)[:, None, :] * LP[None]) @ LP.T
     cov += (e_sptnum ** 2)[:, None, None] * ld[:, :, None] * ld[:, None, :]
     return cov
 

@@ -69,11 +69,15 @@ def parse_one(text) -> dict:
         single class, '' when unusable), ``flags`` (int) and ``detail`` (str).
     """
     out = dict(sptnum=np.nan, e_sptnum=np.nan, lc_bright="", lc_faint="", flags=0, detail="")
-    if text is None or (isinstance(text, float) and not np.isfinite(text)):
-        out.update(flags=int(Flag.TYPE_UNREADABLE), detail="spectral type missing")
+    if isinstance(text, bytes):
+        text = text.decode("utf-8", errors="replace")
+    if not isinstance(text, str):
+        what = "missing" if text is None or (isinstance(text, float) and np.isnan(text)) else f"{text!r} is not text"
+        out.update(flags=int(Flag.TYPE_UNREADABLE), detail=f"spectral type {what}")
         return out
     raw = str(text).strip()
-    spaced = re.sub(r"\s+", " ", raw)
+    spaced = re.sub(r"\s+", " ", raw).replace("?", ":")  # '?' marks uncertainty like ':'
+    spaced = re.sub(r"\s*:+", ":", spaced)
     s = spaced.upper()
     if not s or s in {"NAN", "NONE", "--", "?"}:
         out.update(flags=int(Flag.TYPE_UNREADABLE), detail="spectral type missing")
@@ -143,8 +147,7 @@ def parse_sptypes(values) -> pd.DataFrame:
     pandas.DataFrame
         One row per input value, in order, with the fields of :func:`parse_one`.
     """
-    ser = pd.Series(np.asarray(values, dtype=object)).map(lambda v: v if isinstance(v, str) else None)
-    codes, uniques = pd.factorize(ser, use_na_sentinel=True)
+    codes, uniques = pd.factorize(pd.Series(np.asarray(values, dtype=object)), use_na_sentinel=True)
     parsed = pd.DataFrame([parse_one(u) for u in uniques] + [parse_one(None)])
     codes = np.where(codes < 0, len(uniques), codes)
     return parsed.iloc[codes].reset_index(drop=True)

@@ -8,6 +8,7 @@ import tempfile
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 from astropy.table import Table
 
 __all__ = ["FORMATS", "read_table", "write_table", "guess_format"]
@@ -37,15 +38,22 @@ def guess_format(path, fmt=None) -> str:
                      f"explicitly ({', '.join(FORMATS)})")
 
 
-def read_table(path, fmt=None) -> Table:
-    """Read a table; one clear ValueError for a missing or unreadable file."""
+def read_table(path, fmt=None):
+    """Read a table; one clear ValueError for a missing or unreadable file.
+
+    Returns an astropy Table, or a pandas DataFrame for Parquet (faster for
+    large catalogues; :func:`specpar.estimate` takes either).
+    """
     path = Path(path)
     fmt = guess_format(path, fmt)
     if not path.is_file():
         raise ValueError(f"input file {path} does not exist")
     try:
+        if fmt == "parquet":
+            # pandas reads Parquet directly (fast, keeps strings as objects)
+            return pd.read_parquet(path)
         if fmt == "csv":
-            t = Table.read(path, format="ascii.csv")
+            t = Table.read(path, format="ascii.csv", comment="#")
         else:
             t = Table.read(path, format=FORMATS[fmt][0])
     except Exception as exc:  # astropy and pyarrow raise many kinds
@@ -59,11 +67,42 @@ def _flat_meta(meta: dict) -> dict:
     return {"SPECPAR": json.dumps(meta.get("specpar", {}), sort_keys=True)}
 
 
-def write_table(table: Table, path, fmt=None, *, inputs=(), overwrite=False) -> None:
-    """Write ``table`` atomically (temporary file then rename).
+def _write_parquet(table, tmp, meta) -> None:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+    frame = table if isinstance(table, pd.DataFrame) else table.to_pandas(index=False)
+    frame = frame.copy(deep=False)
+    frame.attrs = {}
+    arrow = pa.Table.from_pandas(frame, preserve_index=False)
+    extra = {b"specpar": json.dumps(meta, sort_keys=True).encode()}
+    arrow = arrow.replace_schema_metadata({**(arrow.schema.metadata or {}), **extra})
+    pq.write_table(arrow, tmp)
+
+
+def _for_astropy(table, fmt, meta) -> Table:
+    out = Table.from_pandas(table) if isinstance(table, pd.DataFrame) else table.copy(copy_data=False)
+    for name in out.colnames:  # object columns (notes) become plain strings
+        if out[name].dtype.kind == "O":
+            out[name] = np.asarray(out[name], dtype=str)
+    if fmt == "csv":
+        out.meta = {"comments": [f"specpar {k}: {json.dumps(v)}" for k, v in meta.items()]}
+    elif fmt == "fits":
+        out.meta = _flat_meta({"specpar": meta})
+    elif fmt == "votable":
+        out.meta = {"description": "specpar " + json.dumps(meta, sort_keys=True)}
+    else:
+        out.meta = {"specpar": meta}
+    return out
+
+
+def write_table(table, path, fmt=None, *, inputs=(), overwrite=False) -> None:
+    """Write an astropy Table or pandas DataFrame atomically (temporary file then rename).
 
     Refuses to write over any of ``inputs`` and, unless ``overwrite``, over an
-    existing file.
+    existing file. specpar's metadata (``meta['specpar']`` or
+    ``attrs['specpar']``) goes where the format keeps metadata: the ECSV
+    header, CSV comment lines, a FITS header keyword, the VOTable description,
+    the Parquet schema.
     """
     path = Path(path)
     fmt = guess_format(path, fmt)
@@ -74,26 +113,15 @@ def write_table(table: Table, path, fmt=None, *, inputs=(), overwrite=False) -> 
         raise ValueError(f"output {path} exists; choose another name or allow overwriting")
     if not path.parent.exists():
         raise ValueError(f"output folder {path.parent} does not exist")
-    out = table.copy(copy_data=False)
-    meta = out.meta.get("specpar", {})
-    if fmt == "csv":
-        out.meta = {"comments": [f"specpar {k}: {json.dumps(v)}" for k, v in meta.items()]}
-    elif fmt == "fits":
-        out.meta = _flat_meta(out.meta)
-        for name in out.colnames:  # FITS has no object columns
-            if out[name].dtype.kind == "O":
-                out[name] = np.asarray(out[name], dtype=str)
-    elif fmt == "votable":
-        out.meta = {"description": "specpar " + json.dumps(meta, sort_keys=True)}
-    elif fmt == "parquet":
-        out.meta = _flat_meta(out.meta)
+    meta = (table.attrs if isinstance(table, pd.DataFrame) else table.meta).get("specpar", {})
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)
     try:
-        kwargs = {"overwrite": True}
-        if fmt == "csv":
-            kwargs["comment"] = "# "
-        out.write(tmp, format=FORMATS[fmt][0], **kwargs)
+        if fmt == "parquet":
+            _write_parquet(table, tmp, meta)
+        else:
+            kwargs = {"comment": "# "} if fmt == "csv" else {}
+            _for_astropy(table, fmt, meta).write(tmp, format=FORMATS[fmt][0], overwrite=True, **kwargs)
         os.replace(tmp, path)
     except Exception as exc:
         if os.path.exists(tmp):

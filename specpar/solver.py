@@ -166,6 +166,7 @@ def solve(obs: Observables, absmag, absmag_deriv, e_sptnum, var_mv, var_colour,
     n_used = valid.sum(axis=1)
     dof = n_used - np.where(colour_known, 2, 1)
     nodata = n_used == 0
+    theta[~colour_known, 1] = 0.0  # pinned, not fitted
     theta[nodata] = np.nan
     e_dm = np.sqrt(cov[:, 0, 0])
     e_e = np.sqrt(cov[:, 1, 1])

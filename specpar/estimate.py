@@ -9,6 +9,7 @@ result, Monte Carlo draws included (see :mod:`specpar.mcdraws`).
 from __future__ import annotations
 
 import re
+import warnings
 from dataclasses import dataclass, field, asdict
 
 import numpy as np
@@ -64,6 +65,7 @@ OUTPUT_COLUMNS = {
     "flags": ("", "bit mask of conditions, see metadata 'flag_bits'"),
     "flag_codes": ("", "names of the bits set in flags"),
     "note": ("", "readable reasons for the flags"),
+    "period0_d": ("d", "fundamental-mode pulsation period used (first overtones converted)"),
 }
 
 #: Units and descriptions of every column specpar may add (extended by optional modules).
@@ -220,8 +222,10 @@ def _prepare(frame_in: pd.DataFrame, opts: EstimateOptions) -> _Prepared:
     frame = frame_in.rename(columns=rename)
     N = len(frame)
     if "sptype" not in frame.columns:
-        raise ValueError("the input has no 'sptype' column; name yours with columns={'sptype': ...} "
-                         "(CLI: --col sptype=YOURNAME)")
+        if "period_d" not in frame.columns:
+            raise ValueError("the input has no 'sptype' column; name yours with columns={'sptype': ...} "
+                             "(CLI: --col sptype=YOURNAME)")
+        frame["sptype"] = None  # pulsating stars only: the period replaces the type
     specs = _observable_columns(frame)
     if not specs:
         raise ValueError("the input has no photometry columns; expected any of "
@@ -248,7 +252,7 @@ def _prepare(frame_in: pd.DataFrame, opts: EstimateOptions) -> _Prepared:
             errs = np.full(N, np.nan)
         with np.errstate(invalid="ignore"):
             need = np.isfinite(vals) & ~(errs > 0)
-        errs = np.where(need, opts.default_error, errs)
+        errs = np.where(need, opts.default_error, np.where(errs > 0, errs, np.nan))
         rejected |= bad.astype(np.int64) << k
         defaulted |= need.astype(np.int64) << k
         y[:, k], sig[:, k] = vals, errs
@@ -339,7 +343,11 @@ def _monte_carlo(obs, cal, cals, sptnum, e_spt, lcb, lcf, keys, res, opts):
     z_spt = normal_draws(keys, opts.seed, next(comp), n)
     z_rv = normal_draws(keys, opts.seed, next(comp), n)
     lo_rv, hi_rv = rv_limits(opts.law)
-    for s in range(0, N, step):
+    starts = range(0, N, step)
+    if opts.progress and N * n > 2_000_000:
+        from tqdm.auto import tqdm
+        starts = tqdm(starts, unit="batch", desc="specpar Monte Carlo")
+    for s in starts:
         sl = slice(s, min(N, s + step))
         m = sl.stop - sl.start
         rep = lambda a: np.repeat(a[sl], n, axis=0)  # noqa: E731
@@ -366,8 +374,8 @@ def _monte_carlo(obs, cal, cals, sptnum, e_spt, lcb, lcf, keys, res, opts):
         bad = (r.n_used != used_nominal)  # a draw left the calibrated range for some band
         dm = np.where(bad, np.nan, r.dm).reshape(m, n)
         eb = np.where(bad, np.nan, r.ebv).reshape(m, n)
-        with np.errstate(invalid="ignore"), np.testing.suppress_warnings() as sup:
-            sup.filter(RuntimeWarning)
+        with np.errstate(invalid="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows give NaN, as wanted
             out["dm"][sl] = np.nanmean(dm, axis=1)
             out["e_dm"][sl] = np.nanstd(dm, axis=1)
             out["ebv"][sl] = np.nanmean(eb, axis=1)
@@ -447,6 +455,10 @@ def estimate(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, sigma_rv=0.2, fit_rv=Fals
         Columns: ``sptype`` (MK type), any of the magnitudes
         ``U B V Rc Ic J H Ks G BP RP`` with errors ``e_<band>``, and/or colours
         such as ``B-V`` with ``e_B-V``. Other columns are carried through.
+        Optional: ``plx``, ``e_plx`` (mas) add the parallax cross-check;
+        ``period_d`` (days) and ``pmode`` (``F`` or ``1O``) make a row a
+        classical Cepheid whose absolute magnitudes come from period-luminosity
+        relations instead of the spectral type (see :mod:`specpar.cepheid`).
     law : str
         Extinction law (``CCM89``, ``O94``, ``F99``, ``F19``, ``G23``); default F99.
     rv, sigma_rv : float
@@ -512,6 +524,7 @@ def run_estimate(table, opts: EstimateOptions):
     outside = np.isfinite(p["sptnum"].to_numpy(float)) & ~np.isfinite(ucal.absmag[:, 0])
     flags |= np.where(outside[c], int(Flag.TYPE_OUTSIDE_CALIBRATION), 0)
     detail = p["detail"].to_numpy(object)[c]
+    cep = None
     if "period_d" in prep.frame.columns:
         # pulsating stars: absolute magnitudes from a period-luminosity relation instead
         from .cepheid import cepheid_calibration
@@ -582,9 +595,15 @@ def run_estimate(table, opts: EstimateOptions):
         "plx_phot_mas": plx, "e_plx_phot_mas": e_plx, "chi2": chi2, "dof": dof,
         "n_obs": n_used,
     }
-    for k in ("mv", "e_mv", "bv0", "ebv", "e_ebv", "av", "e_av", "dm", "e_dm", "dist_pc",
-              "dist_lo_pc", "dist_hi_pc", "plx_phot_mas", "e_plx_phot_mas", "chi2"):
-        results[k] = np.where(nodist & (k not in ("mv", "e_mv", "bv0")), np.nan, results[k])
+    for k in ("dm", "e_dm", "dist_pc", "dist_lo_pc", "dist_hi_pc", "plx_phot_mas", "e_plx_phot_mas"):
+        results[k] = np.where(nodist, np.nan, results[k])  # colours alone still give E(B-V)
+    if cep is not None and cep.mask.any():
+        # period-luminosity rows: full M_V error, no spectral type, the period actually used
+        results["e_mv"][cep.mask] = cep.e_mv
+        for k in ("sptnum", "e_sptnum"):
+            results[k] = np.where(cep.mask, np.nan, results[k])
+        results["period0_d"] = np.full(N, np.nan)
+        results["period0_d"][cep.mask] = cep.period0_d
     if "plx" in prep.frame.columns:
         # trigonometric parallaxes: tension, diagnosis and combined distance
         from .parallax import COLUMNS as plx_columns, crosscheck
@@ -604,6 +623,13 @@ def run_estimate(table, opts: EstimateOptions):
             results[f"M_{name}"] = ucal.absmag[:, b][c]
             results[f"A_{name}"] = np.where(nodist, np.nan, ebv * R_rows[:, b])
     meta = _metadata(opts, cals, prep.obs_names)
+    if cep is not None:
+        from .cepheid import load_pl_calibration
+        meta["cepheid_calibration"] = load_pl_calibration().describe()
+    if "plx" in prep.frame.columns:
+        meta["parallax"] = {"zero_point_mas": opts.plx_offset, "error_scale": opts.plx_error_scale,
+                            "tension_threshold": opts.tension, "prior": "exponentially decreasing space density "
+                            f"(Bailer-Jones 2015, PASP 127, 994), L = {opts.length_scale_pc:g} pc"}
     return _assemble(table, frame, results, meta)
 
 

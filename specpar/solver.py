@@ -89,7 +89,7 @@ def _calibration_cov(obs: Observables, absmag_deriv, e_sptnum, var_mv, var_colou
     return cov
 
 
-def _gls(ydiff, A, C, valid, colour_known):
+def _gls(ydiff, A, C, valid, colour_known, mag_known):
     """Batched GLS: returns theta (N,2), cov (N,2,2), chi2 (N,), W (N,K,K)."""
     N, K = ydiff.shape
     v = valid.astype(float)
@@ -102,6 +102,7 @@ def _gls(ydiff, A, C, valid, colour_known):
     CiA, Ciy = X[:, :, :2], X[:, :, 2]
     F = np.einsum("nki,nkj->nij", A, CiA)
     F[:, 1, 1] += np.where(colour_known, 0.0, _FIXED_E)
+    F[:, 0, 0] += np.where(mag_known, 0.0, _FIXED_E)  # colours only: E(B-V) but no distance
     none = valid.sum(axis=1) == 0
     F[none] = np.eye(2)
     b = np.einsum("nki,nk->ni", A, Ciy)
@@ -150,6 +151,7 @@ def solve(obs: Observables, absmag, absmag_deriv, e_sptnum, var_mv, var_colour,
     n_mag = (valid & is_mag).sum(axis=1)
     n_col = (valid & ~is_mag).sum(axis=1)
     colour_known = (n_mag >= 2) | (n_col >= 1)
+    mag_known = n_mag >= 1
 
     ydiff = obs.y - np.nan_to_num(absmag) @ obs.L.T
     A = _design(obs, R)
@@ -157,18 +159,19 @@ def solve(obs: Observables, absmag, absmag_deriv, e_sptnum, var_mv, var_colour,
     C0 += np.eye(K)[None] * np.nan_to_num(obs.sigma ** 2, nan=1.0)[:, :, None]
     lrv = dR @ obs.L.T  # (N, K)
     sig_rv = np.broadcast_to(np.asarray(sigma_rv, float), (N,))
-    theta, cov, chi2, C = _gls(ydiff, A, C0, valid, colour_known)
+    theta, cov, chi2, C = _gls(ydiff, A, C0, valid, colour_known, mag_known)
     if np.any(sig_rv > 0):
         # second pass: the R_V term scales with E(B-V) itself
         e = np.clip(theta[:, 1], 0.0, None)
         Crv = ((e * sig_rv) ** 2)[:, None, None] * lrv[:, :, None] * lrv[:, None, :]
-        theta, cov, chi2, C = _gls(ydiff, A, C0 + Crv, valid, colour_known)
+        theta, cov, chi2, C = _gls(ydiff, A, C0 + Crv, valid, colour_known, mag_known)
     n_used = valid.sum(axis=1)
-    dof = n_used - np.where(colour_known, 2, 1)
+    dof = n_used - colour_known.astype(int) - mag_known.astype(int)
     nodata = n_used == 0
     theta[~colour_known, 1] = 0.0  # pinned, not fitted
+    theta[~mag_known, 0] = np.nan
     theta[nodata] = np.nan
-    e_dm = np.sqrt(cov[:, 0, 0])
+    e_dm = np.where(mag_known, np.sqrt(cov[:, 0, 0]), np.nan)
     e_e = np.sqrt(cov[:, 1, 1])
     corr = cov[:, 0, 1] / (e_dm * e_e)
     e_e = np.where(colour_known, e_e, 0.0)

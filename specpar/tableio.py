@@ -122,6 +122,9 @@ def write_table(table, path, fmt=None, *, inputs=(), overwrite=False) -> None:
         else:
             kwargs = {"comment": "# "} if fmt == "csv" else {}
             _for_astropy(table, fmt, meta).write(tmp, format=FORMATS[fmt][0], overwrite=True, **kwargs)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp creates 0600; give the usual permissions
         os.replace(tmp, path)
     except Exception as exc:
         if os.path.exists(tmp):

@@ -1,0 +1,302 @@
+"""Worked solutions: same numbers as estimate, hand-computed example, formats, CLI, browser."""
+from __future__ import annotations
+
+import math
+import re
+import shutil
+import subprocess
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from astropy.table import Table
+
+from specpar import estimate
+from specpar.cli import main
+from specpar.tableio import read_table
+from specpar.worked import answer_key, render_html, render_markdown, worked_solutions
+
+SAMPLE = Path(__file__).resolve().parent.parent / "samples" / "survey.csv"
+
+# Invented stars covering the presentation paths: classic B,V; V with a B-V colour; a
+# two-magnitude pair without B; a multi-band fit; an intermediate class; one band only;
+# and rows that cannot be solved (bad type, no photometry, junk magnitude).
+ROWS = [
+    # id, sptype, U, B, V, Ic, J, H, Ks, B-V
+    ("SPX-0001", "G2V", np.nan, 10.10, 9.40, np.nan, np.nan, np.nan, np.nan, np.nan),
+    ("SPX-0002", "K1 III", np.nan, 9.30, 8.20, np.nan, np.nan, np.nan, np.nan, np.nan),
+    ("SPX-0003", "B2.5IV-V", np.nan, 8.00, 8.10, np.nan, np.nan, np.nan, np.nan, np.nan),
+    ("SPX-0004", "F5", np.nan, np.nan, 7.00, np.nan, np.nan, np.nan, np.nan, np.nan),
+    ("SPX-0005", "A0V", np.nan, 11.20, 11.00, 10.80, 10.70, 10.60, 10.50, np.nan),
+    ("SPX-0006", "K0 III", np.nan, np.nan, 9.10, np.nan, np.nan, np.nan, 6.30, np.nan),
+    ("SPX-0007", "F8 V", np.nan, np.nan, 10.20, np.nan, np.nan, np.nan, np.nan, 0.71),
+    ("SPX-0008", "M2 III", 14.0, 12.9, 11.3, 8.6, 6.4, 5.5, 5.3, np.nan),
+    ("SPX-0009", "zz9", np.nan, 10.0, 9.0, np.nan, np.nan, np.nan, np.nan, np.nan),
+    ("SPX-0010", "G5 V", np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan),
+    ("SPX-0011", "K5 V", np.nan, 99.0, 12.0, np.nan, np.nan, np.nan, np.nan, np.nan),
+]
+COLS = ["id", "sptype", "U", "B", "V", "Ic", "J", "H", "Ks", "B-V"]
+
+
+def _table():
+    df = pd.DataFrame(ROWS, columns=COLS)
+    for b in ("U", "B", "V", "Ic", "J", "H", "Ks", "B-V"):
+        df[f"e_{b}"] = np.where(df[b].notna(), 0.02, np.nan)
+    df.loc[4, "e_J"] = np.nan  # one missing error: the default is used and flagged
+    return df
+
+
+#: Steps whose value must be exactly the estimate column of the same name.
+_SAME_AS_ESTIMATE = ("mv", "ebv", "dm", "e_dm", "dist_pc", "dist_lo_pc", "dist_hi_pc", "plx_phot_mas")
+
+
+def _compare_with_estimate(table, **opts):
+    """Every number a worked solution shows as a result equals estimate's (independent call)."""
+    ws = worked_solutions(table, **opts)
+    ref = estimate(table, explain=True, **opts)
+    assert len(ws.stars) == len(ref)  # no row lost
+    checked = 0
+    for i, star in enumerate(ws.stars):
+        for step in star.steps:
+            if step.key in _SAME_AS_ESTIMATE:
+                assert step.value == pytest.approx(float(np.asarray(ref[step.key])[i]), rel=0, abs=0), \
+                    (star.id, step.key)
+                checked += 1
+            elif step.key == "A_V":
+                assert step.value == float(np.asarray(ref["av"])[i]), star.id
+            elif step.key.startswith(("M_", "A_")) and step.key in getattr(ref, "colnames", ref.columns):
+                assert step.value == float(np.asarray(ref[step.key])[i]), (star.id, step.key)
+            elif step.key == "c0_B-V":
+                assert step.value == float(np.asarray(ref["bv0"])[i]), star.id
+        assert star.flags == int(np.asarray(ref["flags"])[i])
+    assert checked > 0
+    return ws, ref
+
+
+def test_numbers_equal_estimate_for_every_invented_star():
+    ws, ref = _compare_with_estimate(_table())
+    solved = [s.solved for s in ws.stars]
+    assert solved == list(np.isfinite(np.asarray(ref["dm"], float)))
+    assert solved.count(False) >= 2  # the bad rows are there, unsolved, with their flags
+    bad = ws.stars[8]
+    assert not bad.solved and "TYPE_UNREADABLE" in bad.flag_codes
+
+
+def test_numbers_equal_estimate_astropy_input_and_options():
+    _compare_with_estimate(Table.from_pandas(_table()), law="CCM89", rv=3.4, sigma_rv=0.1)
+
+
+@pytest.mark.skipif(not SAMPLE.exists(), reason="samples/survey.csv not written yet")
+def test_numbers_equal_estimate_for_sample_survey():
+    _compare_with_estimate(read_table(SAMPLE))
+
+
+def test_period_luminosity_rows_are_presented_without_a_type_chain():
+    pytest.importorskip("specpar.cepheid")
+    t = _table().iloc[:2].copy()
+    t["period_d"] = [10.0, np.nan]  # first row: absolute magnitudes from the period instead of the type
+    ws, ref = _compare_with_estimate(t)
+    cep = ws.stars[0]
+    assert cep.solved and "spectral type" in cep.steps[0].text
+    assert "subtype" not in cep.step("e_dm").text
+
+
+def test_displayed_arithmetic_reproduces_solver():
+    """Where a step shows its arithmetic (look-up chains, E(B-V) from two bands, A = R E,
+    V - M_V - A_V, 10^(dm/5+1), 1000/d ...), doing that arithmetic at full precision gives the
+    solver's result. In the classic two-band case E(B-V) = (B-V) - (B-V)_0 exactly
+    (common practice: the colour excess definition) and dm = V - M_V - A_V."""
+    ws = worked_solutions(_table())
+    n_checked = 0
+    for star in ws.stars:
+        for step in star.steps:
+            if np.isfinite(step.arith):
+                assert step.arith == pytest.approx(step.value, rel=1e-12, abs=1e-12), (star.id, step.key)
+                n_checked += 1
+    assert n_checked > 40
+    classic = ws.stars[0]  # G2V with B and V only
+    df = _table()
+    ebv = classic.step("ebv")
+    assert ebv.formula.startswith("(B - V)")
+    assert ebv.value == pytest.approx((df.B[0] - df.V[0]) - classic.step("c0_B-V").value, rel=0, abs=1e-12)
+    assert classic.step("dm").value == pytest.approx(
+        df.V[0] - classic.step("mv").value - classic.step("A_V").value, rel=0, abs=1e-12)
+    # V with a B-V colour column: the same classic formula on the colour
+    colour = ws.stars[6].step("ebv")
+    assert colour.template == "%0 - %1" and colour.arith == pytest.approx(colour.value, abs=1e-12)
+    # a multi-band star is a fit, shown with a residual table
+    assert ws.stars[4].fit and not np.isfinite(ws.stars[4].step("dm").arith)
+
+
+def test_hand_computed_g2v_example():
+    """Distance of an invented G2V star written out by hand.
+
+    Calibration values read from the mean dwarf table shipped in the meanstars package
+    (Mamajek, 'A Modern Mean Dwarf Stellar Color and Effective Temperature Sequence',
+    v2022.04.16 = Pecaut & Mamajek 2013, ApJS 208, 9, Table 5): G2V M_V = 4.80,
+    (B-V)_0 = 0.65.
+    """
+    MeanStars = pytest.importorskip("MeanStars").MeanStars
+    data = MeanStars().data
+    row = list(np.asarray(data["SpT"], dtype=str)).index("G2V")
+    mv_pub = float(data["Mv"][row])
+    bv0_pub = float(data["B-V"][row])
+    assert mv_pub == 4.80 and bv0_pub == 0.65  # Pecaut & Mamajek 2013 Table 5 (via meanstars)
+
+    V, B = 9.412, 10.274
+    # Step 1: colour excess, E(B-V) = (B - V) - (B-V)_0 (definition; common practice)
+    ebv = (B - V) - bv0_pub                      # = 0.862 - 0.650 = 0.212
+    # Step 2: extinction, A_V = R_V E(B-V) with R_V = 3.1 (Cardelli et al. 1989 mean Galactic value)
+    av = 3.1 * ebv                               # = 0.6572
+    # Step 3: distance modulus, (m - M)_0 = V - M_V - A_V (Pogson 1856 magnitude scale)
+    dm = V - mv_pub - av                         # = 3.9548
+    # Step 4: d = 10^((m - M)_0 / 5 + 1) pc
+    d_pc = 10 ** (dm / 5 + 1)                    # = 61.80 pc
+    # Step 5: light years from the definitions: 1 pc = 648000/pi au (IAU 2015 B2), 1 au =
+    # 149597870700 m (IAU 2012 B2), 1 ly = c x Julian year = 299792458 m/s x 365.25 x 86400 s
+    d_ly = d_pc * (648000 / math.pi) * 149597870700 / (299792458 * 365.25 * 86400)
+    assert (round(ebv, 3), round(av, 4), round(dm, 4), round(d_pc, 2)) == (0.212, 0.6572, 3.9548, 61.80)
+
+    star_table = pd.DataFrame({"id": ["SPX-0100"], "sptype": ["G2V"], "B": [B], "e_B": [0.01],
+                               "V": [V], "e_V": [0.01]})
+    ws = worked_solutions(star_table, decimals=3)
+    s = ws.stars[0]
+    assert s.step("mv").value == mv_pub
+    assert s.step("c0_B-V").value == bv0_pub
+    assert s.step("ebv").value == pytest.approx(ebv, abs=1e-12)
+    assert s.step("A_V").value == pytest.approx(av, abs=1e-12)
+    assert s.step("dm").value == pytest.approx(dm, abs=1e-12)
+    assert s.step("dist_pc").value == pytest.approx(d_pc, rel=1e-12)
+    assert s.step("dist_ly").value == pytest.approx(d_ly, rel=1e-9)
+    assert "dwarfs_V.ecsv, row G2" in s.step("mv").source
+    md = render_markdown(ws)
+    assert "E(B-V) = (B - V) - (B-V)_0 = (10.274 - 9.412) - 0.650 = 0.212" in md
+    assert "A_V = R_V × E(B-V) = 3.100 × 0.212 = 0.657" in md
+    assert "(m-M)_0 = V - M_V - A_V = 9.412 - 4.800 - 0.657 = 3.955" in md
+    assert "10^(3.955/5 + 1) = 61.80 pc" in md
+    assert f"= {d_ly:.1f} ly" in md
+
+
+def test_decimals_change_display_not_values():
+    t = _table().iloc[:2]
+    ws2, ws5 = worked_solutions(t, decimals=2), worked_solutions(t, decimals=5)
+    assert [st.value for st in ws2.stars[0].steps] == [st.value for st in ws5.stars[0].steps]
+    assert "M_V = 4.80 ± 0.35 mag" in render_markdown(ws2)
+    assert "M_V = 4.80000 ± 0.35000 mag" in render_markdown(ws5)
+    assert render_markdown(ws2, decimals=1) != render_markdown(ws2)
+    key = answer_key(ws2, decimals=1)
+    assert key["dm"][0] == round(float(ws2.stars[0].step("dm").value), 1)
+    with pytest.raises(ValueError, match="decimals"):
+        worked_solutions(t, decimals=-1)
+
+
+class _TagCheck(HTMLParser):
+    VOID = {"meta", "br", "hr", "img", "link", "input", "col", "wbr"}
+
+    def __init__(self):
+        super().__init__()
+        self.stack, self.errors, self.tags = [], [], set()
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.add(tag)
+        if tag not in self.VOID:
+            self.stack.append(tag)
+
+    def handle_endtag(self, tag):
+        if not self.stack or self.stack.pop() != tag:
+            self.errors.append(tag)
+
+
+def test_html_is_self_contained_and_well_formed():
+    ws = worked_solutions(_table())
+    page = render_html(ws, title="Lab key")
+    checker = _TagCheck()
+    checker.feed(page)
+    assert checker.errors == [] and checker.stack == []
+    assert {"table", "sub", "sup", "section", "style"} <= checker.tags
+    assert "<script" not in page and "http" not in page and "src=" not in page  # no network, no scripts
+    assert "@media print" in page
+    for star in ws.stars:
+        assert star.id in page
+    assert "M<sub>V</sub>" in page and "10<sup>" in page
+
+
+def test_markdown_and_csv_answer_key(tmp_path):
+    ws = worked_solutions(_table())
+    md = render_markdown(ws)
+    assert md.count("\n## SPX-") == len(ROWS)
+    assert "| V | 11.000 | 0.020 |" in md  # fit table of the multi-band star
+    path = tmp_path / "key.csv"
+    from specpar.worked import write_worked
+    write_worked(ws, path)
+    key = read_table(path)
+    assert list(key["id"]) == [r[0] for r in ROWS]
+    ref = estimate(_table())
+    ok = np.isfinite(np.asarray(ref["dist_pc"], float))
+    np.testing.assert_allclose(np.asarray(key["dm"], float)[ok], np.round(np.asarray(ref["dm"])[ok], 3))
+    assert "calibration" in key.colnames and "dwarfs_V.ecsv" in key["calibration"][0]
+
+
+def test_monte_carlo_distances_are_estimate_percentiles():
+    t = _table().iloc[:3]
+    ws = worked_solutions(t, method="mc", n_draws=200, seed=3)
+    ref = estimate(t, method="mc", n_draws=200, seed=3)
+    for i, s in enumerate(ws.stars):
+        assert s.step("dist_pc").value == float(ref["dist_pc"][i])
+        assert "Monte Carlo" in s.step("dist_pc").text
+
+
+def test_cli_worked(tmp_path, capsys):
+    src = tmp_path / "stars.csv"
+    Table.from_pandas(_table()).write(src, format="ascii.csv")
+    for ext in ("md", "html", "csv"):
+        out = tmp_path / f"solutions.{ext}"
+        assert main(["worked", str(src), "-o", str(out), "--decimals", "2"]) == 0
+        assert out.stat().st_size > 500
+    assert "M_V = 4.80 ± 0.35 mag" in (tmp_path / "solutions.md").read_text()
+    # existing output, input as output, bad decimals, unknown format: one line on stderr, exit 1
+    capsys.readouterr()
+    for args in (["-o", str(tmp_path / "solutions.md")], ["-o", str(src), "--overwrite"],
+                 ["-o", str(tmp_path / "x.md"), "--decimals", "-3"], ["-o", str(tmp_path / "x.txt")]):
+        assert main(["worked", str(src)] + args) == 1
+        err = capsys.readouterr().err
+        assert err.startswith("specpar: error:") and err.count("\n") == 1 and "Traceback" not in err
+    assert main(["worked", str(src), "-o", str(tmp_path / "solutions.md"), "--overwrite"]) == 0
+    assert not list(tmp_path.glob(".*.tmp"))  # atomic writes leave no temporary files
+
+
+# ----------------------------------------------------------------------------- browser
+
+def _chromium_shot(page: Path, out: Path, workdir: Path):
+    exe = shutil.which("chromium")
+    args = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+            "--disable-background-networking", "--disable-component-update", "--disable-sync",
+            f"--user-data-dir={workdir / 'profile'}"]
+    shot = subprocess.run(args + [f"--screenshot={out}", "--window-size=1200,1600", page.as_uri()],
+                          capture_output=True, text=True, timeout=120)
+    dom = subprocess.run(args + ["--dump-dom", page.as_uri()], capture_output=True, text=True, timeout=120)
+    return shot, dom
+
+
+@pytest.mark.browser
+@pytest.mark.skipif(shutil.which("chromium") is None, reason="no chromium on PATH")
+def test_html_page_renders_in_headless_chromium(tmp_path):
+    import matplotlib.image as mpimg
+    ws = worked_solutions(_table())
+    page = tmp_path / "key.html"
+    page.write_text(render_html(ws, title="Answer key"), encoding="utf-8")
+    png = tmp_path / "key.png"
+    shot, dom = _chromium_shot(page, png, tmp_path)
+    assert shot.returncode == 0, shot.stderr[-2000:]
+    assert dom.returncode == 0, dom.stderr[-2000:]
+    # the browser parsed the page: the rendered DOM holds every star and the maths markup
+    assert all(s.id in dom.stdout for s in ws.stars)
+    assert re.search(r"M<sub>V</sub>", dom.stdout)
+    img = mpimg.imread(png)
+    assert img.shape[0] >= 1500 and img.shape[1] >= 1100
+    grey = img[..., :3].mean(axis=-1)
+    dark = (grey < 0.5).mean()
+    assert 0.005 < dark < 0.5  # text on a light page: neither blank nor a single colour
+    assert len(np.unique(np.round(grey, 2))) > 20  # anti-aliased text, not a flat fill

@@ -627,9 +627,8 @@ def run_estimate(table, opts: EstimateOptions):
         from .cepheid import load_pl_calibration
         meta["cepheid_calibration"] = load_pl_calibration().describe()
     if "plx" in prep.frame.columns:
-        meta["parallax"] = {"zero_point_mas": opts.plx_offset, "error_scale": opts.plx_error_scale,
-                            "tension_threshold": opts.tension, "prior": "exponentially decreasing space density "
-                            f"(Bailer-Jones 2015, PASP 127, 994), L = {opts.length_scale_pc:g} pc"}
+        from .parallax import metadata as plx_metadata
+        meta["parallax"] = plx_metadata(opts)
     return _assemble(table, frame, results, meta)
 
 

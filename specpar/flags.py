@@ -59,7 +59,7 @@ SENTENCES = {
     Flag.RV_UNCONSTRAINED: "R_V could not be fitted from these bands: the fixed value was used",
     Flag.PLX_TENSION: "photometric and trigonometric parallaxes disagree",
     Flag.PLX_REJECTED: "parallax or its error unusable and ignored",
-    Flag.PLX_LOW_SNR: "parallax error above 10-20 % of the parallax: 1/parallax is a biased distance (Lutz & Kelker 1973)",
+    Flag.PLX_LOW_SNR: "parallax error above 17.5 % of the parallax: 1/parallax is a biased distance (Lutz & Kelker 1973)",
     Flag.PLX_UNITS_SUSPECT: "parallaxes look like arcsec, not mas: check units",
     Flag.PERIOD_OUT_OF_RANGE: "pulsation period outside the calibrated range (not extrapolated)",
     Flag.PERIOD_INVALID: "pulsation period is zero, negative or not a number",

@@ -508,12 +508,28 @@ def _budget_text(ctx, i):
     return "from the fit's covariance, which includes " + ", ".join(parts)
 
 
+def _period_step(r, i, lum):
+    """Period-luminosity rows: the period used and the M_V relation, with its source."""
+    text = f"from the '{lum}' period-luminosity relations, not from a spectral type"
+    if "period0_d" not in r.colnames or not np.isfinite(float(r["period0_d"][i])):
+        return Step("sptnum", "Absolute magnitudes", text=text)
+    from .cepheid import load_pl_calibration
+    rel = load_pl_calibration().relations["V"]
+    p0 = float(r["period0_d"][i])
+    p_in = float(r["period_d"][i]) if "period_d" in r.colnames else p0
+    x = np.log10(p0)
+    mode = "" if np.isclose(p_in, p0) else f" (first overtone {p_in:g} d converted to fundamental)"
+    text += (f": P_0 = {p0:.4g} d{mode}, log P_0 = {x:.4f}; M_V = {rel.zp:g} + ({rel.slope:g}) "
+             f"(log P_0 - {rel.pivot:g}) = {rel.zp + rel.slope * (x - rel.pivot):.3f} mag; "
+             f"source: {rel.source}")
+    return Step("sptnum", "Absolute magnitudes", text=text)
+
+
 def _type_step(ctx, i, star, cls, lum):
     r = ctx.result
     sptnum = float(r["sptnum"][i])
     if lum not in ctx.per_class and cls[0] == cls[1]:  # e.g. a period-luminosity row
-        return Step("sptnum", "Absolute magnitudes", text=f"from the '{lum}' relations (see the output "
-                                                          "metadata), not from a spectral type")
+        return _period_step(r, i, lum)
     lum_txt = f"class {lum}" if cls[0] == cls[1] else f"classes {cls[0]} and {cls[1]} (intermediate)"
     return Step("sptnum", "Spectral type", value=sptnum, kind="num", unit="",
                 text=f"'{star.sptype}' read as {_type_name(sptnum)}, {lum_txt}; numeric type "
@@ -571,7 +587,8 @@ def _star(ctx, i) -> WorkedStar:
     flags = int(r["flags"][i])
     star = WorkedStar(i, sid, sptype, bool(np.isfinite(float(r["dm"][i]))), [], flags=flags,
                       flag_codes=str(r["flag_codes"][i]), note=str(r["note"][i]))
-    if not np.isfinite(float(r["sptnum"][i])):
+    period_row = "period0_d" in r.colnames and np.isfinite(float(r["period0_d"][i]))
+    if not np.isfinite(float(r["sptnum"][i])) and not period_row:
         star.steps.append(Step("sptnum", "Spectral type", text=f"'{sptype}' could not be used: {star.note}"))
         return star
     lum = str(r["lum_class"][i])

@@ -23,7 +23,7 @@ from .extinction import (DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check
                          coefficient_derivative, rv_limits)
 from .flags import Flag, SENTENCES, flag_names
 from .mcdraws import normal_draws, row_keys
-from .solver import Observables, SolverResult, dm_to_pc, solve
+from .solver import Observables, SolverResult, derivative_modes, dm_to_pc, solve
 from .sptype import parse_sptypes
 
 __all__ = ["estimate", "EstimateOptions", "OUTPUT_COLUMNS"]
@@ -276,20 +276,20 @@ def _prepare(frame_in: pd.DataFrame, opts: EstimateOptions) -> _Prepared:
 
 # ----------------------------------------------------------------------------- solving
 
-def _free_rv(obs, cal, e_spt, law, sigma_rv_prior):
+def _free_rv(obs, cal, modes, law):
     """Per-star R_V from the chi-square profile on a grid (vectorised over stars)."""
     lo, hi = rv_limits(law)
     grid = np.round(np.arange(lo, hi + 1e-9, 0.1), 3)
     coeffs = band_coefficients(law, grid)
     chi2 = np.empty((len(grid), obs.y.shape[0]))
     for i, R in enumerate(coeffs):  # loop over the R_V grid, not over stars
-        r = solve(obs, cal.absmag, cal.dabsmag, e_spt, cal.var_mv, cal.var_colour, R, 0 * R)
+        r = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, 0 * R)
         chi2[i] = np.nan_to_num(r.chi2, nan=np.inf)
     i0 = np.clip(np.argmin(chi2, axis=0), 1, len(grid) - 2)
     n = np.arange(chi2.shape[1])
     c_m, c_0, c_p = chi2[i0 - 1, n], chi2[i0, n], chi2[i0 + 1, n]
-    curv = (c_p - 2 * c_0 + c_m) / 0.01  # second derivative per unit R_V^2
     with np.errstate(invalid="ignore", divide="ignore"):
+        curv = (c_p - 2 * c_0 + c_m) / 0.01  # second derivative per unit R_V^2
         shift = np.where(curv > 0, -0.5 * (c_p - c_m) / 0.1 / curv, 0.0)
         e_rv = np.sqrt(2.0 / curv)
     rv = np.clip(grid[i0] + np.clip(shift, -0.1, 0.1), lo, hi)
@@ -307,35 +307,70 @@ def _coefficients_at(law, rv):
     return R, dR
 
 
-def _solve_chunk(obs, cal, e_spt, opts):
+#: Gauss-Hermite nodes and weights for averaging over the subtype uncertainty
+_GH_X, _GH_W = np.polynomial.hermite_e.hermegauss(9)
+_GH_W = _GH_W / _GH_W.sum()
+
+
+def _subtype_modes(cals, parsed, nominal):
+    """Subtype-uncertainty modes per distinct type, (U, Q, n_bands).
+
+    The calibration is read at the Gauss-Hermite nodes ``s + e_s x_q`` of the
+    subtype's normal distribution; mode q is ``sqrt(w_q) (M(s + e_s x_q) - M(s))``,
+    so ``sum_q m_q m_q^T`` is the mean squared deviation of the absolute
+    magnitudes from the values at the stated type. Unlike a first-order
+    derivative this follows the curvature and kinks of the tables (e.g. the
+    Balmer maximum near A0). Nodes beyond a table's end fall back to the
+    local derivative.
+    """
+    s = parsed["sptnum"].to_numpy(float)
+    e = np.nan_to_num(parsed["e_sptnum"].to_numpy(float))
+    lb, lf = parsed["lc_bright"].to_numpy(object), parsed["lc_faint"].to_numpy(object)
+    U, Q = len(s), len(_GH_X)
+    vals = cals.evaluate((s[:, None] + e[:, None] * _GH_X[None]).ravel(), np.repeat(lb, Q), np.repeat(lf, Q))
+    dev = vals.absmag.reshape(U, Q, -1) - nominal.absmag[:, None, :]
+    linear = nominal.dabsmag[:, None, :] * (e[:, None] * _GH_X[None])[:, :, None]
+    dev = np.where(np.isfinite(dev), dev, linear)
+    return np.sqrt(_GH_W)[None, :, None] * np.nan_to_num(dev)
+
+
+def _solve_chunk(obs, cal, modes, opts):
     N = obs.y.shape[0]
     rv = np.full(N, float(opts.rv))
     sig_rv = np.full(N, float(opts.sigma_rv))
     rv_flag = np.zeros(N, bool)
+    free = None
     if opts.fit_rv:
-        rv_fit, e_fit = _free_rv(obs, cal, e_spt, opts.law, opts.sigma_rv)
-        base = solve(obs, cal.absmag, cal.dabsmag, e_spt, cal.var_mv, cal.var_colour,
+        rv_fit, e_fit = _free_rv(obs, cal, modes, opts.law)
+        base = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour,
                      band_coefficients(opts.law, opts.rv), coefficient_derivative(opts.law, opts.rv),
                      opts.sigma_rv, opts.rv)
         n_mag = (np.isfinite(obs.y) & obs.is_magnitude).sum(axis=1)
-        ok = (e_fit < 1.0) & (n_mag >= 3) & (base.ebv > 3 * base.e_ebv)
-        rv = np.where(ok, rv_fit, rv)
-        sig_rv = np.where(ok, e_fit, sig_rv)
-        rv_flag = ~ok
-    if opts.fit_rv:
+        free = (e_fit < 1.0) & (n_mag >= 3) & (base.ebv > 3 * base.e_ebv)
+        rv = np.where(free, rv_fit, rv)
+        sig_rv = np.where(free, 0.0, sig_rv)  # a fitted parameter now, not a prior
+        rv_flag = ~free
         R, dR = _coefficients_at(opts.law, rv)
     else:
         R, dR = band_coefficients(opts.law, opts.rv), coefficient_derivative(opts.law, opts.rv)
-    res = solve(obs, cal.absmag, cal.dabsmag, e_spt, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv)
+    res = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv, rv_free=free)
+    if opts.fit_rv:
+        weak = free & ~(res.e_rv < 1.0)  # R_V not pinned down once dm and E(B-V) are free too
+        if weak.any():
+            free &= ~weak
+            rv, sig_rv = np.where(weak, opts.rv, rv), np.where(weak, opts.sigma_rv, sig_rv)
+            R, dR = _coefficients_at(opts.law, rv)
+            res = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv, rv_free=free)
+            rv_flag = ~free
     return res, rv_flag
 
 
-def _monte_carlo(obs, cal, cals, sptnum, e_spt, lcb, lcf, keys, res, opts):
+def _monte_carlo(obs, cal, modes, cals, sptnum, e_spt, lcb, lcf, keys, res, opts):
     """Monte Carlo: redraw photometry, subtype, M_V and colour scatter and R_V; refit."""
     N, K = obs.y.shape
     n = opts.n_draws
     out = {k: np.full(N, np.nan) for k in ("dm", "e_dm", "ebv", "e_ebv", "d50", "d16", "d84", "corr")}
-    step = max(1, 200_000 // n)
+    step = max(1, 100_000 // n)
     comp = iter(range(1, 10_000))
     z_phot = [normal_draws(keys, opts.seed, next(comp), n) for _ in range(K)]
     z_mv = normal_draws(keys, opts.seed, next(comp), n)
@@ -368,8 +403,7 @@ def _monte_carlo(obs, cal, cals, sptnum, e_spt, lcb, lcf, keys, res, opts):
         sig_d = np.repeat(obs.sigma[sl], n, axis=0)
         o = Observables(y_d, sig_d, obs.L)
         # weights: the analytic covariance at the star's nominal type (fixed over draws)
-        r = solve(o, absmag, rep(cal.dabsmag), rep(e_spt), rep(cal.var_mv), rep(cal.var_colour),
-                  R, 0 * R)
+        r = solve(o, absmag, rep(modes), rep(cal.var_mv), rep(cal.var_colour), R, 0 * R)
         used_nominal = np.repeat(res.n_used[sl], n)
         bad = (r.n_used != used_nominal)  # a draw left the calibrated range for some band
         dm = np.where(bad, np.nan, r.dm).reshape(m, n)
@@ -515,6 +549,7 @@ def run_estimate(table, opts: EstimateOptions):
     # calibration read once per distinct spectral type, then spread over rows
     ucal = cals.evaluate(p["sptnum"].to_numpy(float), p["lc_bright"].to_numpy(object),
                          p["lc_faint"].to_numpy(object))
+    umodes = _subtype_modes(cals, p, ucal)
     c = prep.parse_codes
     sptnum = p["sptnum"].to_numpy(float)[c]
     e_spt = p["e_sptnum"].to_numpy(float)[c]
@@ -534,6 +569,9 @@ def run_estimate(table, opts: EstimateOptions):
             n_u = len(ucal.var_mv)
             ucal = CalibrationValues(*(np.concatenate([getattr(ucal, f), getattr(cep.values, f)])
                                        for f in CalibrationValues.FIELDS))
+            cmodes = np.zeros((rows.size,) + umodes.shape[1:])
+            cmodes[:, :1] = derivative_modes(cep.values.dabsmag, np.ones(rows.size))
+            umodes = np.concatenate([umodes, cmodes])
             c = c.copy()
             c[rows] = n_u + np.arange(rows.size)
             sptnum[rows], e_spt[rows] = 0.0, 1.0
@@ -552,10 +590,11 @@ def run_estimate(table, opts: EstimateOptions):
         sl = slice(s, min(N, s + CHUNK))
         cal = CalibrationValues(*(getattr(ucal, f)[c[sl]] for f in CalibrationValues.FIELDS))
         obs = Observables(prep.obs.y[sl], prep.obs.sigma[sl], prep.obs.L)
-        r, rvf = _solve_chunk(obs, cal, e_spt[sl], opts)
+        modes = umodes[c[sl]]
+        r, rvf = _solve_chunk(obs, cal, modes, opts)
         if opts.method == "mc":
             keys = row_keys(frame.iloc[sl])
-            r.mc = _monte_carlo(obs, cal, cals, sptnum[sl], e_spt[sl], lcb[sl], lcf[sl], keys, r, opts)
+            r.mc = _monte_carlo(obs, cal, modes, cals, sptnum[sl], e_spt[sl], lcb[sl], lcf[sl], keys, r, opts)
         res_parts.append(r)
         rvflag_parts.append(rvf)
     cat = lambda name: np.concatenate([getattr(r, name) for r in res_parts]) if res_parts else np.zeros(0)  # noqa: E731

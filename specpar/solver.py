@@ -68,8 +68,6 @@ class SolverResult:
     uncalibrated: np.ndarray
     rv: np.ndarray
     e_rv: np.ndarray
-    cov_inv: np.ndarray | None = None  # (N, K, K) weights, kept for Monte Carlo
-    design: np.ndarray | None = None
 
     def p_value(self) -> np.ndarray:
         """Chi-square tail probability (NaN where dof is 0)."""
@@ -77,16 +75,21 @@ class SolverResult:
             return np.where(self.dof > 0, stats.chi2.sf(self.chi2, np.maximum(self.dof, 1)), np.nan)
 
 
-def _calibration_cov(obs: Observables, absmag_deriv, e_sptnum, var_mv, var_colour):
+def _calibration_cov(obs: Observables, sub_modes, var_mv, var_colour):
     """Covariance in observable space of the calibration terms, (N, K, K)."""
     L = obs.L
     l1 = L.sum(axis=1)  # response to a common shift of all bands (M_V scatter)
     LP = L @ _P  # (K, n_colours)
-    ld = np.nan_to_num(absmag_deriv) @ L.T  # (N, K)
     cov = var_mv[:, None, None] * np.outer(l1, l1)[None]
     cov += (np.nan_to_num(var_colour)[:, None, :] * LP[None]) @ LP.T
-    cov += (e_sptnum ** 2)[:, None, None] * ld[:, :, None] * ld[:, None, :]
+    lm = np.nan_to_num(sub_modes) @ L.T  # (N, Q, K): subtype modes seen by each observable
+    cov += np.swapaxes(lm, 1, 2) @ lm
     return cov
+
+
+def derivative_modes(absmag_deriv, e_sptnum) -> np.ndarray:
+    """First-order subtype modes ``e_sptnum * dM/dsubtype``, shape (N, 1, n_bands)."""
+    return (np.nan_to_num(absmag_deriv) * np.nan_to_num(e_sptnum)[:, None])[:, None, :]
 
 
 def _gls(ydiff, A, C, valid, colour_known, mag_known):
@@ -112,6 +115,18 @@ def _gls(ydiff, A, C, valid, colour_known, mag_known):
     return theta, cov, np.maximum(chi2, 0.0), C
 
 
+def _three_parameter_cov(A, ebv, lrv, C, valid):
+    """Covariance of (dm, E(B-V), R_V) from the Fisher matrix at the best fit.
+
+    The model derivative with respect to R_V is E(B-V) * L dR/dR_V.
+    """
+    v = valid.astype(float)
+    A3 = np.concatenate([A, (ebv[:, None] * lrv)[:, :, None]], axis=2) * v[:, :, None]
+    F3 = np.einsum("nki,nkj->nij", A3, np.linalg.solve(C, A3))
+    F3 += np.eye(3)[None] * 1e-12  # keeps the inverse finite where R_V is barely constrained
+    return np.linalg.inv(F3)
+
+
 def _design(obs: Observables, R):
     """(N, K, 2) design matrix for per-star coefficients R (N, n_bands)."""
     a0 = np.broadcast_to(obs.L.sum(axis=1), obs.y.shape)
@@ -119,21 +134,26 @@ def _design(obs: Observables, R):
     return np.stack([a0, a1], axis=-1)
 
 
-def solve(obs: Observables, absmag, absmag_deriv, e_sptnum, var_mv, var_colour,
-          R, dR, sigma_rv=0.0, rv=3.1):
+def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
+          R, dR, sigma_rv=0.0, rv=3.1, rv_free=None):
     """Fit distance modulus and E(B-V) for every star.
 
     Parameters
     ----------
     obs : Observables
-    absmag, absmag_deriv : (N, n_bands) calibration absolute magnitudes and
-        their derivative per subclass (NaN where not calibrated).
-    e_sptnum : (N,) subtype uncertainty in subclasses.
+    absmag : (N, n_bands) calibration absolute magnitudes (NaN where not calibrated).
+    sub_modes : (N, Q, n_bands) subtype-uncertainty modes: the covariance the
+        subtype uncertainty gives the absolute magnitudes is ``sum_q m_q m_q^T``
+        (see :func:`derivative_modes` for the first-order form).
     var_mv : (N,) variance of M_V; var_colour : (N, n_colours).
     R, dR : (N, n_bands) or (n_bands,) extinction coefficients A/E(B-V) and
         their derivative with respect to R_V.
-    sigma_rv : float or (N,) uncertainty of R_V.
+    sigma_rv : float or (N,) uncertainty of R_V (0 where R_V is a fitted parameter).
     rv : float or (N,) the R_V the coefficients belong to (reported back).
+    rv_free : (N,) bool, optional
+        Rows whose R_V was fitted from the same photometry: their uncertainties
+        come from the Fisher matrix of (dm, E(B-V), R_V) and one degree of
+        freedom is spent on R_V.
 
     Returns
     -------
@@ -155,7 +175,7 @@ def solve(obs: Observables, absmag, absmag_deriv, e_sptnum, var_mv, var_colour,
 
     ydiff = obs.y - np.nan_to_num(absmag) @ obs.L.T
     A = _design(obs, R)
-    C0 = _calibration_cov(obs, absmag_deriv, np.nan_to_num(e_sptnum), np.nan_to_num(var_mv), var_colour)
+    C0 = _calibration_cov(obs, sub_modes, np.nan_to_num(var_mv), var_colour)
     C0 += np.eye(K)[None] * np.nan_to_num(obs.sigma ** 2, nan=1.0)[:, :, None]
     lrv = dR @ obs.L.T  # (N, K)
     sig_rv = np.broadcast_to(np.asarray(sigma_rv, float), (N,))
@@ -167,6 +187,13 @@ def solve(obs: Observables, absmag, absmag_deriv, e_sptnum, var_mv, var_colour,
         theta, cov, chi2, C = _gls(ydiff, A, C0 + Crv, valid, colour_known, mag_known)
     n_used = valid.sum(axis=1)
     dof = n_used - colour_known.astype(int) - mag_known.astype(int)
+    free = np.zeros(N, bool) if rv_free is None else np.asarray(rv_free, bool) & colour_known & mag_known
+    e_rv = sig_rv.copy()
+    if free.any():
+        cov3 = _three_parameter_cov(A[free], theta[free, 1], lrv[free], C[free], valid[free])
+        cov[free] = cov3[:, :2, :2]
+        e_rv[free] = np.sqrt(cov3[:, 2, 2])
+        dof = dof - free.astype(int)
     nodata = n_used == 0
     theta[~colour_known, 1] = 0.0  # pinned, not fitted
     theta[~mag_known, 0] = np.nan
@@ -182,6 +209,5 @@ def solve(obs: Observables, absmag, absmag_deriv, e_sptnum, var_mv, var_colour,
         e_ebv=np.where(nodata, np.nan, e_e), corr=np.where(nodata, np.nan, corr),
         chi2=chi2, dof=dof, n_used=n_used, colour_known=colour_known,
         uncalibrated=(uncalibrated & measured).any(axis=1),
-        rv=np.broadcast_to(np.asarray(rv, float), (N,)).copy(), e_rv=sig_rv.copy(),
-        cov_inv=None, design=None,
+        rv=np.broadcast_to(np.asarray(rv, float), (N,)).copy(), e_rv=e_rv,
     )

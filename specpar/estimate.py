@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import re
 import warnings
-from dataclasses import dataclass, field, asdict
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -23,7 +23,7 @@ from .extinction import (DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check
                          coefficient_derivative, rv_limits)
 from .flags import Flag, SENTENCES, flag_names
 from .mcdraws import normal_draws, row_keys
-from .solver import Observables, SolverResult, derivative_modes, dm_to_pc, solve
+from .solver import Observables, derivative_modes, dm_to_pc, solve
 from .sptype import parse_sptypes
 
 __all__ = ["estimate", "EstimateOptions", "OUTPUT_COLUMNS"]

@@ -35,8 +35,6 @@ from memory).
 """
 from __future__ import annotations
 
-import os
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -45,6 +43,7 @@ import pandas as pd
 from scipy.special import log_ndtr, logsumexp, ndtr, ndtri, ndtri_exp
 
 from .flags import Flag
+from .tableio import atomic_write
 
 __all__ = ["COLUMNS", "DIAG_CODES", "crosscheck", "distance_posterior", "DistanceSummary",
            "tension_z", "metadata", "plot_parallax", "register_cli"]
@@ -635,24 +634,12 @@ def plot_parallax(table, path, *, threshold=None, overwrite=False, inputs=()):
     fmt = path.suffix.lower().lstrip(".")
     if fmt not in ("png", "pdf"):
         raise ValueError(f"figure file {path} must end in .png or .pdf, not {path.suffix or 'nothing'!r}")
-    if any(Path(i).exists() and path.exists() and os.path.samefile(i, path) for i in inputs):
-        raise ValueError(f"refusing to write the figure over the input file {path}")
-    if path.exists() and not overwrite:
-        raise ValueError(f"{path} exists; choose another name or allow overwriting")
-    if not path.parent.exists():
-        raise ValueError(f"output folder {path.parent} does not exist")
     if threshold is None:
         meta = (table.attrs if isinstance(table, pd.DataFrame) else table.meta).get("specpar", {})
         threshold = float((meta or {}).get("parallax", {}).get("plx_tension_threshold", 3.0))
     fig = _draw(_plot_frame(table), threshold)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    os.close(fd)
-    try:
-        fig.savefig(tmp, format=fmt, dpi=120)
-        os.replace(tmp, path)
-    finally:
-        if os.path.exists(tmp):
-            os.remove(tmp)
+    atomic_write(path, lambda tmp: fig.savefig(tmp, format=fmt, dpi=120), inputs=inputs,
+                 overwrite=overwrite, what="figure")
 
 
 def _cmd_plot(args):

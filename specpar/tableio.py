@@ -95,38 +95,52 @@ def _for_astropy(table, fmt, meta) -> Table:
     return out
 
 
-def write_table(table, path, fmt=None, *, inputs=(), overwrite=False) -> None:
-    """Write an astropy Table or pandas DataFrame atomically (temporary file then rename).
+def atomic_write(path, writer, *, inputs=(), overwrite=False, what="output") -> None:
+    """Create ``path`` through ``writer(temporary_path)`` and rename it into place.
 
     Refuses to write over any of ``inputs`` and, unless ``overwrite``, over an
-    existing file. specpar's metadata (``meta['specpar']`` or
-    ``attrs['specpar']``) goes where the format keeps metadata: the ECSV
-    header, CSV comment lines, a FITS header keyword, the VOTable description,
-    the Parquet schema.
+    existing file; nothing is left behind if ``writer`` fails. The file gets
+    the permissions of a plain new file (mkstemp's are 0600).
     """
     path = Path(path)
-    fmt = guess_format(path, fmt)
     for inp in inputs:
         if Path(inp).exists() and path.exists() and os.path.samefile(inp, path):
-            raise ValueError(f"refusing to write the output over the input file {path}")
+            raise ValueError(f"refusing to write the {what} over the input file {path}")
     if path.exists() and not overwrite:
-        raise ValueError(f"output {path} exists; choose another name or allow overwriting")
+        raise ValueError(f"{what} {path} exists; choose another name or allow overwriting (--overwrite)")
     if not path.parent.exists():
         raise ValueError(f"output folder {path.parent} does not exist")
-    meta = (table.attrs if isinstance(table, pd.DataFrame) else table.meta).get("specpar", {})
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)
     try:
-        if fmt == "parquet":
-            _write_parquet(table, tmp, meta)
-        else:
-            kwargs = {"comment": "# "} if fmt == "csv" else {}
-            _for_astropy(table, fmt, meta).write(tmp, format=FORMATS[fmt][0], overwrite=True, **kwargs)
+        writer(tmp)
         umask = os.umask(0)
         os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp creates 0600; give the usual permissions
+        os.chmod(tmp, 0o666 & ~umask)
         os.replace(tmp, path)
-    except Exception as exc:
+    finally:
         if os.path.exists(tmp):
             os.remove(tmp)
-        raise ValueError(f"cannot write {path} as {fmt}: {exc}") from None
+
+
+def write_table(table, path, fmt=None, *, inputs=(), overwrite=False) -> None:
+    """Write an astropy Table or pandas DataFrame atomically (see :func:`atomic_write`).
+
+    specpar's metadata (``meta['specpar']`` or ``attrs['specpar']``) goes where
+    the format keeps metadata: the ECSV header, CSV comment lines, a FITS header
+    keyword, the VOTable description, the Parquet schema.
+    """
+    fmt = guess_format(path, fmt)
+    meta = (table.attrs if isinstance(table, pd.DataFrame) else table.meta).get("specpar", {})
+
+    def writer(tmp):
+        try:
+            if fmt == "parquet":
+                _write_parquet(table, tmp, meta)
+            else:
+                kwargs = {"comment": "# "} if fmt == "csv" else {}
+                _for_astropy(table, fmt, meta).write(tmp, format=FORMATS[fmt][0], overwrite=True, **kwargs)
+        except Exception as exc:
+            raise ValueError(f"cannot write {path} as {fmt}: {exc}") from None
+
+    atomic_write(path, writer, inputs=inputs, overwrite=overwrite)

@@ -27,9 +27,7 @@ The calibration and extinction-law references are listed in each output.
 from __future__ import annotations
 
 import html
-import os
 import re
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -41,6 +39,7 @@ from .bands import BAND_NAMES, BANDS, CALIBRATION_COLOURS, band_index
 from .calibration import CalibrationSet, default_calibrations
 from .estimate import EstimateOptions, _coefficients_at, _prepare, _to_frame, estimate
 from .flags import Flag, SENTENCES
+from .tableio import atomic_write
 from .sptype import TEMPERATURE_CLASSES
 
 __all__ = ["Step", "FitRow", "WorkedStar", "WorkedSolution", "SummaryTable", "worked_solutions",
@@ -929,31 +928,12 @@ def render_html(ws: WorkedSolution, *, title: str = "Worked solutions", decimals
 # ----------------------------------------------------------------------------- writing
 
 def write_text(text: str, path, *, inputs=(), overwrite: bool = False) -> None:
-    """Write a text file atomically (temporary file in the same folder, then rename).
-
-    Refuses to write over any of ``inputs`` and, unless ``overwrite``, over an
-    existing file.
-    """
-    path = Path(path)
-    for inp in inputs:
-        if Path(inp).exists() and path.exists() and os.path.samefile(inp, path):
-            raise ValueError(f"refusing to write the output over the input file {path}")
-    if path.exists() and not overwrite:
-        raise ValueError(f"output {path} exists; choose another name or allow overwriting (--overwrite)")
-    if not path.parent.exists():
-        raise ValueError(f"output folder {path.parent} does not exist")
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
+    """Write a text file atomically; refuses to write over ``inputs`` or, unless
+    ``overwrite``, over an existing file (see :func:`specpar.tableio.atomic_write`)."""
+    def writer(tmp):
+        with open(tmp, "w", encoding="utf-8", newline="\n") as fh:
             fh.write(text)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # the permissions of a plain new file, not mkstemp's 0600
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.remove(tmp)
-        raise
+    atomic_write(path, writer, inputs=inputs, overwrite=overwrite)
 
 
 def _format_of(path, fmt):

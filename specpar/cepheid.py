@@ -342,8 +342,8 @@ class CepheidRows:
 
 def _periods(series: pd.Series):
     """Period values, rows that carry a period, rows whose period is unusable."""
-    from .estimate import _numeric  # shared parser of numeric cells (lazy: estimate imports us lazily too)
-    vals, bad = _numeric(series)
+    from .estimate import numeric_values  # shared parser of numeric cells (lazy: estimate imports us lazily too)
+    vals, bad = numeric_values(series)
     given = np.isfinite(vals) | bad
     with np.errstate(invalid="ignore"):
         invalid = bad | (given & ~(vals > 0))

@@ -36,7 +36,7 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: error: {message}\n")
 
 
-def _column_map(pairs):
+def column_map(pairs):
     out = {}
     for p in pairs or ():
         if "=" not in p:
@@ -90,7 +90,7 @@ def _cmd_estimate(args):
         table, law=args.law, rv=args.rv, sigma_rv=args.sigma_rv, fit_rv=args.fit_rv,
         method="mc" if args.mc else "analytic", n_draws=args.mc or 1000, seed=args.seed,
         default_error=args.default_error, calibrations=tuple(args.calibration or ()),
-        columns=_column_map(args.col), progress=not args.quiet, explain=args.explain,
+        columns=column_map(args.col), progress=not args.quiet, explain=args.explain,
         plx_offset=args.plx_offset, plx_error_scale=args.plx_error_scale, tension=args.tension,
         length_scale_pc=args.length_scale)
     write_table(out, args.output, args.out_format, inputs=[args.input], overwrite=args.overwrite)

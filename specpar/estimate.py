@@ -149,7 +149,9 @@ class EstimateOptions:
 # ----------------------------------------------------------------------------- input
 
 @dataclass
-class _Prepared:
+class PreparedInput:
+    """Input rows turned into observables, with flags and the parsed types."""
+
     frame: pd.DataFrame
     obs: Observables
     obs_names: list
@@ -160,7 +162,7 @@ class _Prepared:
     parse_codes: np.ndarray
 
 
-def _to_frame(table) -> pd.DataFrame:
+def to_frame(table) -> pd.DataFrame:
     if isinstance(table, pd.DataFrame):
         return table.reset_index(drop=True)
     if isinstance(table, Table):
@@ -179,7 +181,7 @@ def _to_frame(table) -> pd.DataFrame:
     raise TypeError(f"estimate() takes an astropy Table or a pandas DataFrame, not {type(table).__name__}")
 
 
-def _numeric(series: pd.Series):
+def numeric_values(series: pd.Series):
     """Float values and a mask of entries that were given but not usable numbers."""
     if series.dtype.kind in "fiub":
         vals = series.to_numpy(dtype=float)
@@ -213,7 +215,12 @@ def _observable_columns(frame: pd.DataFrame):
     return out
 
 
-def _prepare(frame_in: pd.DataFrame, opts: EstimateOptions) -> _Prepared:
+def prepare_observables(frame_in: pd.DataFrame, opts: EstimateOptions) -> PreparedInput:
+    """Read photometry and spectral types exactly as :func:`estimate` does.
+
+    Used by the worked solutions and the cluster fit so that every part of
+    specpar sees the same observables, rejections and default errors.
+    """
     rename = {theirs: ours for ours, theirs in opts.columns.items()}
     missing = [t for t in rename if t not in frame_in.columns]
     if missing:
@@ -237,14 +244,14 @@ def _prepare(frame_in: pd.DataFrame, opts: EstimateOptions) -> _Prepared:
     rejected = np.zeros(N, np.int64)
     defaulted = np.zeros(N, np.int64)
     for k, (name, row) in enumerate(specs):
-        vals, bad = _numeric(frame[name])
+        vals, bad = numeric_values(frame[name])
         lo, hi = MAG_RANGE if row.sum() != 0 else COLOUR_RANGE
         with np.errstate(invalid="ignore"):
             bad |= (vals < lo) | (vals > hi)
         vals = np.where(bad, np.nan, vals)
         ecol = f"e_{name}"
         if ecol in frame.columns:
-            errs, ebad = _numeric(frame[ecol])
+            errs, ebad = numeric_values(frame[ecol])
             with np.errstate(invalid="ignore"):
                 ebad |= errs > 5.0
             errs = np.where(ebad, np.nan, errs)
@@ -270,7 +277,7 @@ def _prepare(frame_in: pd.DataFrame, opts: EstimateOptions) -> _Prepared:
     parsed = parse_sptypes(list(uniques) + [None])
     codes = np.where(codes < 0, len(uniques), codes)
     L = np.stack([row for _, row in specs])
-    return _Prepared(frame, Observables(y, sig, L), [n for n, _ in specs], flags, rejected,
+    return PreparedInput(frame, Observables(y, sig, L), [n for n, _ in specs], flags, rejected,
                      defaulted, parsed, codes)
 
 
@@ -296,7 +303,7 @@ def _free_rv(obs, cal, modes, law):
     return rv, np.where(np.isfinite(e_rv), e_rv, np.inf)
 
 
-def _coefficients_at(law, rv):
+def coefficients_at(law, rv):
     """Extinction coefficients and derivatives at per-star R_V (interpolated on a grid)."""
     lo, hi = rv_limits(law)
     grid = np.round(np.arange(lo, hi + 1e-9, 0.05), 3)
@@ -350,7 +357,7 @@ def _solve_chunk(obs, cal, modes, opts):
         rv = np.where(free, rv_fit, rv)
         sig_rv = np.where(free, 0.0, sig_rv)  # a fitted parameter now, not a prior
         rv_flag = ~free
-        R, dR = _coefficients_at(opts.law, rv)
+        R, dR = coefficients_at(opts.law, rv)
     else:
         R, dR = band_coefficients(opts.law, opts.rv), coefficient_derivative(opts.law, opts.rv)
     res = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv, rv_free=free)
@@ -359,7 +366,7 @@ def _solve_chunk(obs, cal, modes, opts):
         if weak.any():
             free &= ~weak
             rv, sig_rv = np.where(weak, opts.rv, rv), np.where(weak, opts.sigma_rv, sig_rv)
-            R, dR = _coefficients_at(opts.law, rv)
+            R, dR = coefficients_at(opts.law, rv)
             res = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv, rv_free=free)
             rv_flag = ~free
     return res, rv_flag
@@ -397,7 +404,7 @@ def _monte_carlo(obs, cal, modes, cals, sptnum, e_spt, lcb, lcf, keys, res, opts
                          for c in range(len(CALIBRATION_COLOURS))], axis=-1)
         absmag = cv.absmag + dmv[:, None] + dcol @ _P.T
         rv_d = np.clip((res.rv[sl, None] + res.e_rv[sl, None] * z_rv[sl]).ravel(), lo_rv, hi_rv)
-        R, _ = _coefficients_at(opts.law, rv_d)
+        R, _ = coefficients_at(opts.law, rv_d)
         y_d = np.stack([(obs.y[sl, k, None] + obs.sigma[sl, k, None] * z_phot[k][sl]).ravel()
                         for k in range(K)], axis=-1)
         sig_d = np.repeat(obs.sigma[sl], n, axis=0)
@@ -542,8 +549,8 @@ def run_estimate(table, opts: EstimateOptions):
     """:func:`estimate` with an :class:`EstimateOptions`."""
     opts.check()
     cals = CalibrationSet(opts.calibrations) if opts.calibrations else default_calibrations()
-    frame = _to_frame(table)
-    prep = _prepare(frame, opts)
+    frame = to_frame(table)
+    prep = prepare_observables(frame, opts)
     N = len(frame)
     p = prep.parsed
     # calibration read once per distinct spectral type, then spread over rows
@@ -655,7 +662,7 @@ def run_estimate(table, opts: EstimateOptions):
     note, codes = _notes(flags, detail, prep.rejected, prep.defaulted, prep.obs_names)
     results.update(flags=flags, flag_codes=codes, note=note)
     if opts.explain:
-        R_rows, _ = _coefficients_at(opts.law, rv_used)
+        R_rows, _ = coefficients_at(opts.law, rv_used)
         touched = np.flatnonzero((prep.obs.L != 0).any(axis=0))
         for b in touched:
             name = BAND_NAMES[b]

@@ -342,11 +342,11 @@ def _strings(values) -> np.ndarray:
 
 def _read_parallaxes(frame: pd.DataFrame, opts) -> _Parallaxes:
     """Corrected parallaxes and errors; rows that cannot be used are flagged, never dropped."""
-    from .estimate import _numeric
+    from .estimate import numeric_values
     n = len(frame)
-    raw, bad = _numeric(frame["plx"])
+    raw, bad = numeric_values(frame["plx"])
     if "e_plx" in frame.columns:
-        err, ebad = _numeric(frame["e_plx"])
+        err, ebad = numeric_values(frame["e_plx"])
         e_given = np.isfinite(err) | ebad
     else:
         err, ebad, e_given = np.full(n, np.nan), np.zeros(n, bool), np.zeros(n, bool)
@@ -565,14 +565,14 @@ _PLOT_COLUMNS = (("plx_corr_mas", "plx"), ("e_plx_corr_mas", "e_plx"), ("plx_pho
 
 
 def _plot_frame(table) -> pd.DataFrame:
-    from .estimate import _numeric, _to_frame
-    frame = _to_frame(table)
+    from .estimate import numeric_values, to_frame
+    frame = to_frame(table)
     found = {options[-1]: next((c for c in options if c in frame.columns), None) for options in _PLOT_COLUMNS}
     missing = [" or ".join(options) for options in _PLOT_COLUMNS if found[options[-1]] is None]
     if missing:
         raise ValueError(f"the table lacks {', '.join(missing)}; plot-parallax needs the output of "
                          "'specpar estimate' run on an input with plx and e_plx")
-    return pd.DataFrame({name: _numeric(frame[col])[0] for name, col in found.items()})
+    return pd.DataFrame({name: numeric_values(frame[col])[0] for name, col in found.items()})
 
 
 def _draw(data: pd.DataFrame, threshold: float):

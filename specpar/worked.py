@@ -37,7 +37,7 @@ from astropy.table import Table
 
 from .bands import BAND_NAMES, BANDS, CALIBRATION_COLOURS, band_index
 from .calibration import CalibrationSet, default_calibrations
-from .estimate import EstimateOptions, _coefficients_at, _prepare, _to_frame, estimate
+from .estimate import EstimateOptions, coefficients_at, prepare_observables, to_frame, estimate
 from .flags import Flag, SENTENCES
 from .tableio import atomic_write
 from .sptype import TEMPERATURE_CLASSES
@@ -347,7 +347,7 @@ def _absmag_step(ctx, i, band):
 
 def _observations(table, opts: EstimateOptions):
     """The observables as the solver saw them (values, errors, band combinations)."""
-    prep = _prepare(_to_frame(table), opts)
+    prep = prepare_observables(to_frame(table), opts)
     return prep.obs, prep.obs_names
 
 
@@ -655,7 +655,7 @@ def _context(table, result, options) -> _Context:
         per_class[lc] = np.column_stack([v.absmag[:, 0], v.colours])
     meta = result.meta
     rv = np.nan_to_num(np.asarray(result["rv"], dtype=float), nan=opts.rv)
-    coef, _ = _coefficients_at(opts.law, rv)
+    coef, _ = coefficients_at(opts.law, rv)
     return _Context(result, cals, obs, names, colours, per_class, coef, opts.law,
                     meta.get("extinction_law_reference", ""), opts.method, int(opts.n_draws))
 
@@ -965,12 +965,12 @@ def write_worked(ws: WorkedSolution, path, fmt=None, *, inputs=(), overwrite=Fal
 # ----------------------------------------------------------------------------- CLI
 
 def _cmd_worked(args) -> int:
-    from .cli import _column_map
+    from .cli import column_map
     from .tableio import read_table
     table = read_table(args.input, args.in_format)
     ws = worked_solutions(table, decimals=args.decimals, law=args.law, rv=args.rv, sigma_rv=args.sigma_rv,
                           fit_rv=args.fit_rv, default_error=args.default_error,
-                          calibrations=tuple(args.calibration or ()), columns=_column_map(args.col))
+                          calibrations=tuple(args.calibration or ()), columns=column_map(args.col))
     write_worked(ws, args.output, args.format, inputs=[args.input], overwrite=args.overwrite,
                  title=args.title or f"Worked solutions: {Path(args.input).name}")
     return 0

@@ -263,7 +263,8 @@ def test_cli_writes_members_and_diagrams(tmp_path, capsys, field):
     t = Table(field, copy=True)
     t.remove_columns([c for c in t.colnames if c.startswith("sim_")])
     out, cmd, tc = tmp_path / "members.ecsv", tmp_path / "cmd.png", tmp_path / "tc.pdf"
-    rc = _cli(tmp_path, t, "-o", str(out), "--plot", str(cmd), "--twocolour", str(tc))
+    rc = _cli(tmp_path, t, "-o", str(out), "--plot", str(cmd), "--twocolour", str(tc),
+              "--bands", "U,B,V,Ic", "--dm-range=-1,20")
     text = capsys.readouterr().out
     assert rc == 0 and "distance modulus" in text and "E(B-V)" in text
     m = Table.read(out)

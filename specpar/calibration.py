@@ -171,6 +171,16 @@ def _check_table(t: Table, path: str) -> None:
         raise ValueError(f"calibration {path}: 'sptnum' must have at least two rows, strictly increasing")
 
 
+def read_ecsv(path, what="calibration") -> Table:
+    """Read an ECSV table; one ValueError naming the file for any problem."""
+    try:
+        return Table.read(path, format="ascii.ecsv")
+    except FileNotFoundError:
+        raise ValueError(f"{what} file {path} does not exist") from None
+    except Exception as exc:  # astropy raises several types for malformed ECSV
+        raise ValueError(f"{what} file {path} is not a readable ECSV table: {exc}") from None
+
+
 @lru_cache(maxsize=32)
 def load_calibration(path) -> Calibration:
     """Load one calibration table (ECSV) and check its format.
@@ -183,12 +193,7 @@ def load_calibration(path) -> Calibration:
         ``references``, ``colour_scatter``.
     """
     path = str(path)
-    try:
-        t = Table.read(path, format="ascii.ecsv")
-    except FileNotFoundError:
-        raise ValueError(f"calibration file {path} does not exist") from None
-    except Exception as exc:  # astropy raises several types for malformed ECSV
-        raise ValueError(f"calibration file {path} is not a readable ECSV table: {exc}") from None
+    t = read_ecsv(path)
     _check_table(t, path)
     refs = t.meta.get("references", [])
     refs = [refs] if isinstance(refs, str) else list(refs)

@@ -71,7 +71,7 @@ import pandas as pd
 from astropy.table import Table
 
 from .bands import BANDS, CALIBRATION_COLOURS, band_index
-from .calibration import CalibrationValues, calibration_dir
+from .calibration import CalibrationValues, calibration_dir, read_ecsv
 from .extinction import DEFAULT_LAW, DEFAULT_RV, band_coefficients
 from .flags import Flag
 
@@ -163,12 +163,7 @@ class PLCalibration:
 
 
 def _read_pl_table(path: str) -> Table:
-    try:
-        t = Table.read(path, format="ascii.ecsv")
-    except FileNotFoundError:
-        raise ValueError(f"Cepheid calibration file {path} does not exist") from None
-    except Exception as exc:  # astropy raises several types for malformed ECSV
-        raise ValueError(f"Cepheid calibration file {path} is not a readable ECSV table: {exc}") from None
+    t = read_ecsv(path, "Cepheid calibration")
     missing = [c for c in _REQUIRED_COLUMNS if c not in t.colnames]
     names = [str(n) for n in t["relation"]] if "relation" in t.colnames else []
     missing += [f"relation {r}" for r in _REQUIRED_RELATIONS if r not in names]

@@ -1339,24 +1339,8 @@ def _member_table(table, d: _Data, cols, used, flags, res):
                 "(flat mass-ratio distribution); the prior along the locus is uniform in the "
                 "ordinate's absolute magnitude; field stars follow a broad density; one extinction "
                 "law at fixed R_V for the whole cluster; evolved members count as outliers.")}
-    clash = [k for k in results if k in d.frame.columns]
-    if isinstance(table, pd.DataFrame):
-        out = table.reset_index(drop=True).rename(columns={k: f"input_{k}" for k in clash})
-        for k, v in results.items():
-            out[k] = v
-        out.attrs["specpar"] = meta
-        return out
-    out = Table(table, copy=True)
-    for k in clash:
-        out.rename_column(k, f"input_{k}")
-    for k, v in results.items():
-        out[k] = v
-        unit, desc = MEMBER_COLUMNS[k]
-        out[k].description = desc
-        if unit:
-            out[k].unit = unit
-    out.meta["specpar"] = meta
-    return out
+    from .estimate import attach_results
+    return attach_results(table, d.frame, results, meta, MEMBER_COLUMNS)
 
 
 def _flag_text(flags):

@@ -675,10 +675,17 @@ def run_estimate(table, opts: EstimateOptions):
     if "plx" in prep.frame.columns:
         from .parallax import metadata as plx_metadata
         meta["parallax"] = plx_metadata(opts)
-    return _assemble(table, frame, results, meta)
+    return attach_results(table, frame, results, meta)
 
 
-def _assemble(table, frame, results, meta):
+def attach_results(table, frame, results, meta, info=None):
+    """The input table (same type) with ``results`` appended as columns.
+
+    Input columns whose names clash with a result are kept as ``input_<name>``;
+    units and descriptions come from ``info`` (default :data:`COLUMN_INFO`);
+    ``meta`` goes to ``meta['specpar']`` (``attrs`` for pandas).
+    """
+    info = COLUMN_INFO if info is None else info
     clash = [k for k in results if k in frame.columns]
     if isinstance(table, pd.DataFrame):
         out = table.reset_index(drop=True).rename(columns={k: f"input_{k}" for k in clash})
@@ -690,8 +697,8 @@ def _assemble(table, frame, results, meta):
     for k in clash:
         out.rename_column(k, f"input_{k}")
     for k, v in results.items():
-        unit, desc = COLUMN_INFO.get(k) or ("mag", f"{'absolute magnitude' if k[0] == 'M' else 'extinction'} in {k[2:]}")
-        out[k] = Column(v, dtype=object) if v.dtype.kind == "O" else v
+        unit, desc = info.get(k) or ("mag", f"{'absolute magnitude' if k[0] == 'M' else 'extinction'} in {k[2:]}")
+        out[k] = Column(v, dtype=object) if np.asarray(v).dtype.kind == "O" else v
         out[k].description = desc
         if unit:
             out[k].unit = unit

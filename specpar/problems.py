@@ -377,8 +377,11 @@ def write_problem_set(ps: ProblemSet, out_dir, *, overwrite: bool = False, decim
     """
     from .tableio import write_table
     out_dir = Path(out_dir)
-    if not out_dir.is_dir():
-        raise ValueError(f"output folder {out_dir} does not exist; create it first")
+    if out_dir.exists() and not out_dir.is_dir():
+        raise ValueError(f"{out_dir} exists and is not a folder; choose another --out-dir")
+    if not out_dir.parent.is_dir():
+        raise ValueError(f"folder {out_dir.parent} does not exist; create it first")
+    out_dir.mkdir(exist_ok=True)
     files = problem_files(ps, out_dir)
     taken = [str(p) for p in files.values() if p.exists()]
     if taken and not overwrite:

@@ -21,7 +21,7 @@ from .bands import BANDS, BAND_NAMES, CALIBRATION_COLOURS, band_index, chain_mat
 from .calibration import CalibrationSet, CalibrationValues, default_calibrations
 from .extinction import (DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check_law,
                          coefficient_derivative, rv_limits)
-from .flags import Flag, SENTENCES, flag_names
+from .flags import Flag, describe, flag_names
 from .mcdraws import normal_draws, row_keys
 from .solver import Observables, derivative_modes, dm_to_pc, solve
 from .sptype import parse_sptypes
@@ -439,23 +439,29 @@ def _combine_codes(*arrays) -> np.ndarray:
     return code
 
 
-def _notes(flags, parsed_detail, rejected, defaulted, obs_names):
-    """Readable note and flag names per row, built once per distinct combination."""
-    codes = _combine_codes(flags, parsed_detail, rejected, defaulted)
+def _notes(flags, detail, rejected, defaulted, obs_names):
+    """Readable note and flag names per row.
+
+    The flag sentences and band lists are built once per distinct combination
+    (there are few); the per-row detail text is appended with a vectorised join.
+    """
+    codes = _combine_codes(flags, rejected, defaulted)
     first = np.unique(codes, return_index=True)[1]
     texts, names = [], []
     for i in first:
-        f, d, r, x = int(flags[i]), parsed_detail[i], int(rejected[i]), int(defaulted[i])
-        parts = [SENTENCES[b] for b in Flag if f & b]
+        f, r, x = int(flags[i]), int(rejected[i]), int(defaulted[i])
+        parts = [describe(f)] if f else []
         if r:
             parts.append("rejected: " + ", ".join(n for k, n in enumerate(obs_names) if r >> k & 1))
         if x:
             parts.append("default error used for: " + ", ".join(n for k, n in enumerate(obs_names) if x >> k & 1))
-        if d:
-            parts.append(d)
         texts.append("; ".join(parts))
         names.append(",".join(flag_names(f)))
-    return np.array(texts, dtype=object)[codes], np.array(names, dtype=object)[codes]
+    prefix = np.array(texts, dtype=object)[codes]
+    detail = np.asarray(detail, dtype=object)
+    has_d, has_p = detail != "", prefix != ""
+    note = np.where(has_d, np.where(has_p, prefix + "; ", "") + detail, prefix)
+    return note, np.array(names, dtype=object)[codes]
 
 
 def _metadata(opts, cals, obs_names):

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from functools import lru_cache
-from importlib import resources
 from pathlib import Path
 
 import numpy as np
@@ -35,14 +34,17 @@ _P, _DEP = chain_matrices()
 
 
 def calibration_dir() -> Path:
-    """Folder holding the shipped calibration tables."""
-    try:
-        path = Path(str(resources.files("specpar.calibrations")))
-        if (path / DEFAULT_FILES["V"]).exists():
-            return path
-    except (ModuleNotFoundError, TypeError):
-        pass
-    return Path(__file__).resolve().parent.parent / "calibrations"
+    """Folder holding the shipped calibration tables.
+
+    Installed, they are package data next to this module
+    (``specpar/calibrations``); in a source checkout they are the repository's
+    top-level ``calibrations/`` folder.
+    """
+    here = Path(__file__).resolve().parent
+    for folder in (here / "calibrations", here.parent / "calibrations"):
+        if (folder / DEFAULT_FILES["V"]).exists():
+            return folder
+    return here / "calibrations"
 
 
 @dataclass

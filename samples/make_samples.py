@@ -101,8 +101,9 @@ def pulsators(rng) -> None:
     from specpar.cepheid import load_pl_calibration
     rel = load_pl_calibration().relations
     rows = []
-    for i, (period, mode) in enumerate([(5.4, "F"), (9.8, "F"), (15.3, "F"), (31.0, "F"), (3.9, "1O"),
-                                        (7.2, "F"), (-2.0, "F"), (11.1, "X")]):
+    for i, (period, mode, sptype) in enumerate([(5.4, "F", "F6Ib"), (9.8, "F", "G0Ib"), (15.3, "F", "G2Iab"),
+                                                (31.0, "F", "K0Iab"), (3.9, "1O", "F6II"), (7.2, "F", ""),
+                                                (-2.0, "F", "F8Ib"), (11.1, "X", "G1Ib")]):
         logp = np.log10(period) if period > 0 else 1.0
         if mode == "1O":  # first overtone: the fundamental period is longer
             logp = np.log10(period / 0.71)
@@ -112,7 +113,7 @@ def pulsators(rng) -> None:
         ebv = rng.uniform(0.1, 0.9)
         v = mv + 5 * np.log10(d / 10) + 3.1 * ebv
         ic = v - vi0 - 1.3 * ebv
-        rows.append({"id": f"SLS-V{31 + i:02d}", "field": f"Lantern-{1 + i % 4}", "sptype": "",
+        rows.append({"id": f"SLS-V{31 + i:02d}", "field": f"Lantern-{1 + i % 4}", "sptype": sptype,
                      "period_d": period, "pmode": mode, "V": round(v, 3), "e_V": 0.02,
                      "Ic": round(ic, 3), "e_Ic": 0.02})
     pd.DataFrame(rows).to_csv(HERE / "pulsators.csv", index=False)

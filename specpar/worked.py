@@ -582,7 +582,8 @@ def _reddening_steps(ctx, i, star, used, fit, touched, colour_known, ref_band):
 def _star(ctx, i) -> WorkedStar:
     r = ctx.result
     sid = str(r["id"][i]) if "id" in r.colnames else f"row {i + 1}"
-    sptype = str(r["sptype"][i]) if "sptype" in r.colnames else ""
+    raw = r["sptype"][i] if "sptype" in r.colnames else ""
+    sptype = raw if isinstance(raw, str) else ""  # masked or a column read as numbers: no type
     flags = int(r["flags"][i])
     star = WorkedStar(i, sid, sptype, bool(np.isfinite(float(r["dm"][i]))), [], flags=flags,
                       flag_codes=str(r["flag_codes"][i]), note=str(r["note"][i]))

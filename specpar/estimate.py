@@ -551,6 +551,104 @@ def estimate(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, sigma_rv=0.2, fit_rv=Fals
     return run_estimate(table, opts)
 
 
+@dataclass
+class _RowCalibration:
+    """Calibration values per distinct type (``ucal``, ``modes``) and, per row, the
+    index into them (``code``) with the type, class, flags and details of the row."""
+
+    ucal: CalibrationValues
+    modes: np.ndarray
+    code: np.ndarray
+    sptnum: np.ndarray
+    e_spt: np.ndarray
+    lcb: np.ndarray
+    lcf: np.ndarray
+    flags: np.ndarray
+    detail: np.ndarray
+    cep: object = None
+
+    def rows(self, sl):
+        """Calibration values and subtype modes for the rows in slice ``sl``."""
+        idx = self.code[sl]
+        return CalibrationValues(*(getattr(self.ucal, f)[idx] for f in CalibrationValues.FIELDS)), self.modes[idx]
+
+
+def _calibrate_rows(prep, cals, opts) -> _RowCalibration:
+    """Read the calibration once per distinct spectral type; period-luminosity
+    relations replace it for rows with a pulsation period."""
+    p, c = prep.parsed, prep.parse_codes
+    ucal = cals.evaluate(p["sptnum"].to_numpy(float), p["lc_bright"].to_numpy(object),
+                         p["lc_faint"].to_numpy(object))
+    outside = np.isfinite(p["sptnum"].to_numpy(float)) & ~np.isfinite(ucal.absmag[:, 0])
+    rc = _RowCalibration(
+        ucal, _subtype_modes(cals, p, ucal), c.copy(), p["sptnum"].to_numpy(float)[c],
+        p["e_sptnum"].to_numpy(float)[c], p["lc_bright"].to_numpy(object)[c],
+        p["lc_faint"].to_numpy(object)[c],
+        prep.flags | p["flags"].to_numpy(np.int64)[c] | np.where(outside[c], int(Flag.TYPE_OUTSIDE_CALIBRATION), 0),
+        p["detail"].to_numpy(object)[c])
+    if "period_d" not in prep.frame.columns:
+        return rc
+    from .cepheid import cepheid_calibration
+    cep = rc.cep = cepheid_calibration(prep.frame, opts)
+    rows = np.flatnonzero(cep.mask)
+    if rows.size:
+        n_u = len(rc.ucal.var_mv)
+        rc.ucal = CalibrationValues(*(np.concatenate([getattr(rc.ucal, f), getattr(cep.values, f)])
+                                      for f in CalibrationValues.FIELDS))
+        cmodes = np.zeros((rows.size,) + rc.modes.shape[1:])
+        cmodes[:, :1] = derivative_modes(cep.values.dabsmag, np.ones(rows.size))
+        rc.modes = np.concatenate([rc.modes, cmodes])
+        rc.code[rows] = n_u + np.arange(rows.size)
+        rc.sptnum[rows], rc.e_spt[rows] = 0.0, 1.0  # the modes carry the relation's spread
+        rc.lcb[rows] = rc.lcf[rows] = cep.label
+        rc.flags[rows] = prep.flags[rows]  # the spectral type is not used for these rows
+        rc.detail[rows] = ""
+    rc.flags |= cep.flags
+    rc.detail = np.where(cep.detail != "", cep.detail, rc.detail)
+    return rc
+
+
+def _solve_rows(frame, prep, rc, cals, opts) -> dict:
+    """Solve every row in chunks (progress bar on long runs); arrays over all rows."""
+    N = len(frame)
+    parts = []
+    chunks = range(0, max(N, 1), CHUNK)
+    if opts.progress and N > CHUNK:
+        from tqdm.auto import tqdm
+        chunks = tqdm(chunks, total=len(chunks), unit="chunk", desc="specpar estimate")
+    for s in chunks:
+        sl = slice(s, min(N, s + CHUNK))
+        cal, modes = rc.rows(sl)
+        obs = Observables(prep.obs.y[sl], prep.obs.sigma[sl], prep.obs.L)
+        r, rv_flag = _solve_chunk(obs, cal, modes, opts)
+        part = {k: getattr(r, k) for k in ("dm", "e_dm", "ebv", "e_ebv", "rv", "e_rv", "n_used",
+                                            "colour_known", "chi2", "dof", "uncalibrated")}
+        part.update(p_value=r.p_value(), rv_flag=rv_flag)
+        if opts.method == "mc":
+            mc = _monte_carlo(obs, cal, modes, cals, rc.sptnum[sl], rc.e_spt[sl], rc.lcb[sl],
+                              rc.lcf[sl], row_keys(frame.iloc[sl]), r, opts)
+            part.update(dm=mc["dm"], e_dm=mc["e_dm"], ebv=mc["ebv"], e_ebv=mc["e_ebv"],
+                        d50=mc["d50"], d16=mc["d16"], d84=mc["d84"])
+        else:
+            part.update(d50=dm_to_pc(r.dm), d16=dm_to_pc(r.dm - r.e_dm), d84=dm_to_pc(r.dm + r.e_dm))
+        parts.append(part)
+    return {k: np.concatenate([part[k] for part in parts])[:N] for k in parts[0]}
+
+
+def _fit_flags(fit, typed, opts) -> np.ndarray:
+    """Flag bits that follow from the fit itself."""
+    nodist = ~np.isfinite(fit["dm"])
+    flags = np.where(nodist, int(Flag.NO_DISTANCE), 0)
+    flags |= np.where(~nodist & ~fit["colour_known"], int(Flag.EBV_ASSUMED_ZERO), 0)
+    flags |= np.where(fit["uncalibrated"] & typed, int(Flag.BAND_UNCALIBRATED), 0)
+    with np.errstate(invalid="ignore"):
+        flags |= np.where(fit["colour_known"] & (fit["ebv"] + 3 * fit["e_ebv"] < 0), int(Flag.EBV_NEGATIVE), 0)
+        flags |= np.where(fit["p_value"] < 1e-3, int(Flag.BANDS_DISAGREE), 0)
+    if opts.fit_rv:
+        flags |= np.where(fit["rv_flag"] & ~nodist, int(Flag.RV_UNCONSTRAINED), 0)
+    return flags
+
+
 def run_estimate(table, opts: EstimateOptions):
     """:func:`estimate` with an :class:`EstimateOptions`."""
     opts.check()
@@ -558,97 +656,28 @@ def run_estimate(table, opts: EstimateOptions):
     frame = to_frame(table)
     prep = prepare_observables(frame, opts)
     N = len(frame)
-    p = prep.parsed
-    # calibration read once per distinct spectral type, then spread over rows
-    ucal = cals.evaluate(p["sptnum"].to_numpy(float), p["lc_bright"].to_numpy(object),
-                         p["lc_faint"].to_numpy(object))
-    umodes = _subtype_modes(cals, p, ucal)
-    c = prep.parse_codes
-    sptnum = p["sptnum"].to_numpy(float)[c]
-    e_spt = p["e_sptnum"].to_numpy(float)[c]
-    lcb = p["lc_bright"].to_numpy(object)[c]
-    lcf = p["lc_faint"].to_numpy(object)[c]
-    flags = prep.flags | p["flags"].to_numpy(np.int64)[c]
-    outside = np.isfinite(p["sptnum"].to_numpy(float)) & ~np.isfinite(ucal.absmag[:, 0])
-    flags |= np.where(outside[c], int(Flag.TYPE_OUTSIDE_CALIBRATION), 0)
-    detail = p["detail"].to_numpy(object)[c]
-    cep = None
-    if "period_d" in prep.frame.columns:
-        # pulsating stars: absolute magnitudes from a period-luminosity relation instead
-        from .cepheid import cepheid_calibration
-        cep = cepheid_calibration(prep.frame, opts)
-        rows = np.flatnonzero(cep.mask)
-        if rows.size:
-            n_u = len(ucal.var_mv)
-            ucal = CalibrationValues(*(np.concatenate([getattr(ucal, f), getattr(cep.values, f)])
-                                       for f in CalibrationValues.FIELDS))
-            cmodes = np.zeros((rows.size,) + umodes.shape[1:])
-            cmodes[:, :1] = derivative_modes(cep.values.dabsmag, np.ones(rows.size))
-            umodes = np.concatenate([umodes, cmodes])
-            c = c.copy()
-            c[rows] = n_u + np.arange(rows.size)
-            sptnum[rows], e_spt[rows] = 0.0, 1.0
-            lcb[rows] = lcf[rows] = cep.label
-            flags[rows] = prep.flags[rows]  # the spectral type is not used for these rows
-            detail[rows] = ""
-        flags |= cep.flags
-        detail = np.where(cep.detail != "", cep.detail, detail)
-
-    res_parts, rvflag_parts = [], []
-    chunks = range(0, max(N, 1), CHUNK)
-    if opts.progress and N > CHUNK:
-        from tqdm.auto import tqdm
-        chunks = tqdm(chunks, total=len(chunks), unit="chunk", desc="specpar estimate")
-    for s in chunks:
-        sl = slice(s, min(N, s + CHUNK))
-        cal = CalibrationValues(*(getattr(ucal, f)[c[sl]] for f in CalibrationValues.FIELDS))
-        obs = Observables(prep.obs.y[sl], prep.obs.sigma[sl], prep.obs.L)
-        modes = umodes[c[sl]]
-        r, rvf = _solve_chunk(obs, cal, modes, opts)
-        if opts.method == "mc":
-            keys = row_keys(frame.iloc[sl])
-            r.mc = _monte_carlo(obs, cal, modes, cals, sptnum[sl], e_spt[sl], lcb[sl], lcf[sl], keys, r, opts)
-        res_parts.append(r)
-        rvflag_parts.append(rvf)
-    cat = lambda name: np.concatenate([getattr(r, name) for r in res_parts]) if res_parts else np.zeros(0)  # noqa: E731
-    dm, e_dm, ebv, e_ebv = cat("dm"), cat("e_dm"), cat("ebv"), cat("e_ebv")
-    rv_used, e_rv = cat("rv"), cat("e_rv")
-    if opts.method == "mc" and res_parts:
-        mc = {k: np.concatenate([r.mc[k] for r in res_parts]) for k in res_parts[0].mc}
-        dm, e_dm, ebv, e_ebv = mc["dm"], mc["e_dm"], mc["ebv"], mc["e_ebv"]
-        d50, d16, d84 = mc["d50"], mc["d16"], mc["d84"]
-    else:
-        d50, d16, d84 = dm_to_pc(dm), dm_to_pc(dm - e_dm), dm_to_pc(dm + e_dm)
-    n_used, colour_known = cat("n_used"), cat("colour_known")
-    chi2, dof = cat("chi2"), np.maximum(cat("dof"), 0)
-    nodist = ~np.isfinite(dm)
-    flags |= np.where(nodist, int(Flag.NO_DISTANCE), 0)
-    flags |= np.where(~nodist & ~colour_known, int(Flag.EBV_ASSUMED_ZERO), 0)
-    typed = np.isfinite(ucal.absmag[:, 0])[c]
-    flags |= np.where(cat("uncalibrated") & typed, int(Flag.BAND_UNCALIBRATED), 0)
-    with np.errstate(invalid="ignore"):
-        flags |= np.where(colour_known & (ebv + 3 * e_ebv < 0), int(Flag.EBV_NEGATIVE), 0)
-        pval = np.concatenate([r.p_value() for r in res_parts]) if res_parts else np.zeros(0)
-        flags |= np.where(pval < 1e-3, int(Flag.BANDS_DISAGREE), 0)
-    if opts.fit_rv and res_parts:
-        flags |= np.where(np.concatenate(rvflag_parts) & ~nodist, int(Flag.RV_UNCONSTRAINED), 0)
-    av = rv_used * ebv
-    e_av = np.sqrt((rv_used * e_ebv) ** 2 + (ebv * e_rv) ** 2)
-    plx = 1000.0 / d50
-    e_plx = plx * np.log(10) / 5.0 * e_dm
-    iV, iB = band_index("V"), CALIBRATION_COLOURS.index("B-V")
-    ucal_mv = ucal.absmag[:, iV][c]
-    lum = np.where(lcb == lcf, lcb, lcb.astype(str) + "-" + lcf.astype(str))
+    rc = _calibrate_rows(prep, cals, opts)
+    fit = _solve_rows(frame, prep, rc, cals, opts)
+    u, code = rc.ucal, rc.code  # per-row values are read through the code, not copied whole
+    flags = rc.flags | _fit_flags(fit, np.isfinite(u.absmag[code, band_index("V")]), opts)
+    detail = rc.detail
+    nodist = ~np.isfinite(fit["dm"])
+    ebv, e_ebv, rv_used, e_rv, e_dm = fit["ebv"], fit["e_ebv"], fit["rv"], fit["e_rv"], fit["e_dm"]
+    plx = 1000.0 / fit["d50"]
+    lum = np.where(rc.lcb == rc.lcf, rc.lcb, rc.lcb.astype(str) + "-" + rc.lcf.astype(str))
     results = {
-        "sptnum": sptnum, "e_sptnum": e_spt, "lum_class": lum.astype(str),
-        "mv": ucal_mv, "e_mv": np.sqrt(ucal.var_mv)[c], "bv0": ucal.colours[:, iB][c],
-        "ebv": ebv, "e_ebv": e_ebv, "rv": rv_used, "e_rv": e_rv, "av": av, "e_av": e_av,
-        "dm": dm, "e_dm": e_dm, "dist_pc": d50, "dist_lo_pc": d16, "dist_hi_pc": d84,
-        "plx_phot_mas": plx, "e_plx_phot_mas": e_plx, "chi2": chi2, "dof": dof,
-        "n_obs": n_used,
+        "sptnum": rc.sptnum, "e_sptnum": rc.e_spt, "lum_class": lum.astype(str),
+        "mv": u.absmag[code, band_index("V")], "e_mv": np.sqrt(u.var_mv[code]),
+        "bv0": u.colours[code, CALIBRATION_COLOURS.index("B-V")],
+        "ebv": ebv, "e_ebv": e_ebv, "rv": rv_used, "e_rv": e_rv, "av": rv_used * ebv,
+        "e_av": np.sqrt((rv_used * e_ebv) ** 2 + (ebv * e_rv) ** 2),
+        "dm": fit["dm"], "e_dm": e_dm, "dist_pc": fit["d50"], "dist_lo_pc": fit["d16"],
+        "dist_hi_pc": fit["d84"], "plx_phot_mas": plx, "e_plx_phot_mas": plx * np.log(10) / 5.0 * e_dm,
+        "chi2": fit["chi2"], "dof": np.maximum(fit["dof"], 0), "n_obs": fit["n_used"],
     }
     for k in ("dm", "e_dm", "dist_pc", "dist_lo_pc", "dist_hi_pc", "plx_phot_mas", "e_plx_phot_mas"):
         results[k] = np.where(nodist, np.nan, results[k])  # colours alone still give E(B-V)
+    cep = rc.cep
     if cep is not None and cep.mask.any():
         # period-luminosity rows: full M_V error, no spectral type, the period actually used
         results["e_mv"][cep.mask] = cep.e_mv
@@ -660,8 +689,8 @@ def run_estimate(table, opts: EstimateOptions):
         # trigonometric parallaxes: tension, diagnosis and combined distance
         from .parallax import COLUMNS as plx_columns, crosscheck
         COLUMN_INFO.update(plx_columns)
-        extra, pflags, pdetail = crosscheck(prep.frame, results, cals=cals, sptnum=sptnum,
-                                            lc_bright=lcb, lc_faint=lcf, opts=opts)
+        extra, pflags, pdetail = crosscheck(prep.frame, results, cals=cals, sptnum=rc.sptnum,
+                                            lc_bright=rc.lcb, lc_faint=rc.lcf, opts=opts)
         results.update(extra)
         flags |= pflags
         detail = np.where(pdetail != "", np.where(detail != "", detail + "; ", "") + pdetail, detail)
@@ -669,10 +698,9 @@ def run_estimate(table, opts: EstimateOptions):
     results.update(flags=flags, flag_codes=codes, note=note)
     if opts.explain:
         R_rows, _ = coefficients_at(opts.law, rv_used)
-        touched = np.flatnonzero((prep.obs.L != 0).any(axis=0))
-        for b in touched:
+        for b in np.flatnonzero((prep.obs.L != 0).any(axis=0)):
             name = BAND_NAMES[b]
-            results[f"M_{name}"] = ucal.absmag[:, b][c]
+            results[f"M_{name}"] = u.absmag[code, b]
             results[f"A_{name}"] = np.where(nodist, np.nan, ebv * R_rows[:, b])
     meta = _metadata(opts, cals, prep.obs_names)
     if cep is not None:

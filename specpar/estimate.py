@@ -23,7 +23,7 @@ from .extinction import (DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check
                          coefficient_derivative, rv_limits)
 from .flags import Flag, describe, flag_names
 from .mcdraws import normal_draws, row_keys
-from .solver import Observables, derivative_modes, dm_to_pc, solve
+from .solver import Observables, derivative_modes, dm_to_pc, fit_draws, solve
 from .sptype import parse_sptypes
 
 __all__ = ["estimate", "EstimateOptions", "OUTPUT_COLUMNS"]
@@ -360,14 +360,17 @@ def _solve_chunk(obs, cal, modes, opts):
         R, dR = coefficients_at(opts.law, rv)
     else:
         R, dR = band_coefficients(opts.law, opts.rv), coefficient_derivative(opts.law, opts.rv)
-    res = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv, rv_free=free)
+    keep = opts.method == "mc"
+    res = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv, rv_free=free,
+                keep_weights=keep)
     if opts.fit_rv:
         weak = free & ~(res.e_rv < 1.0)  # R_V not pinned down once dm and E(B-V) are free too
         if weak.any():
             free &= ~weak
             rv, sig_rv = np.where(weak, opts.rv, rv), np.where(weak, opts.sigma_rv, sig_rv)
             R, dR = coefficients_at(opts.law, rv)
-            res = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv, rv_free=free)
+            res = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv, rv_free=free,
+                        keep_weights=keep)
             rv_flag = ~free
     return res, rv_flag
 
@@ -385,6 +388,20 @@ def _monte_carlo(obs, cal, modes, cals, sptnum, e_spt, lcb, lcf, keys, res, opts
     z_spt = normal_draws(keys, opts.seed, next(comp), n)
     z_rv = normal_draws(keys, opts.seed, next(comp), n)
     lo_rv, hi_rv = rv_limits(opts.law)
+    # the calibration along each distinct type's subtype distribution, tabulated once
+    # at z = -6..6 sigma and interpolated linearly per draw
+    own = ~np.isin(lcb, list(cals.by_class))  # e.g. period-luminosity rows: each row its own relation
+    ucode = _combine_codes(sptnum, e_spt, lcb, lcf, np.where(own, np.arange(N), -1))
+    first = np.unique(ucode, return_index=True)[1]
+    ucode = np.unique(ucode, return_inverse=True)[1].ravel()
+    zg = np.linspace(-6.0, 6.0, 121)
+    x = sptnum[first, None] + e_spt[first, None] * zg[None]
+    G = zg.size
+    table = cals.evaluate(x.ravel(), np.repeat(lcb[first], G), np.repeat(lcf[first], G)).absmag
+    table = table.reshape(first.size, G, len(BANDS))
+    linear = own[first]
+    table[linear] = (cal.absmag[first][linear, None, :]
+                     + cal.dabsmag[first][linear, None, :] * (e_spt[first][linear, None] * zg[None])[:, :, None])
     starts = range(0, N, step)
     if opts.progress and N * n > 2_000_000:
         from tqdm.auto import tqdm
@@ -392,29 +409,26 @@ def _monte_carlo(obs, cal, modes, cals, sptnum, e_spt, lcb, lcf, keys, res, opts
     for s in starts:
         sl = slice(s, min(N, s + step))
         m = sl.stop - sl.start
-        rep = lambda a: np.repeat(a[sl], n, axis=0)  # noqa: E731
-        spt_d = (sptnum[sl, None] + e_spt[sl, None] * z_spt[sl]).ravel()
-        cv = cals.evaluate(spt_d, rep(lcb), rep(lcf))
-        linear = ~np.isin(rep(lcb), list(cals.by_class))  # e.g. period-luminosity rows
-        if linear.any():
-            shift = (spt_d - np.repeat(sptnum[sl], n))[linear]
-            cv.absmag[linear] = rep(cal.absmag)[linear] + rep(cal.dabsmag)[linear] * shift[:, None]
+        pos = (np.clip(z_spt[sl], zg[0], zg[-1]) - zg[0]) / (zg[1] - zg[0])
+        j0 = np.minimum(pos.astype(int), G - 2)
+        frac = (pos - j0)[:, :, None]
+        rows = ucode[sl, None]
+        drawn = (table[rows, j0] * (1.0 - frac) + table[rows, j0 + 1] * frac).reshape(m * n, -1)
         dmv = (np.sqrt(np.nan_to_num(cal.var_mv[sl]))[:, None] * z_mv[sl]).ravel()
         dcol = np.stack([(np.sqrt(np.nan_to_num(cal.var_colour[sl, c]))[:, None] * z_col[c][sl]).ravel()
                          for c in range(len(CALIBRATION_COLOURS))], axis=-1)
-        absmag = cv.absmag + dmv[:, None] + dcol @ _P.T
+        absmag = drawn + dmv[:, None] + dcol @ _P.T
         rv_d = np.clip((res.rv[sl, None] + res.e_rv[sl, None] * z_rv[sl]).ravel(), lo_rv, hi_rv)
         R, _ = coefficients_at(opts.law, rv_d)
-        y_d = np.stack([(obs.y[sl, k, None] + obs.sigma[sl, k, None] * z_phot[k][sl]).ravel()
-                        for k in range(K)], axis=-1)
-        sig_d = np.repeat(obs.sigma[sl], n, axis=0)
-        o = Observables(y_d, sig_d, obs.L)
-        # weights: the analytic covariance at the star's nominal type (fixed over draws)
-        r = solve(o, absmag, rep(modes), rep(cal.var_mv), rep(cal.var_colour), R, 0 * R)
-        used_nominal = np.repeat(res.n_used[sl], n)
-        bad = (r.n_used != used_nominal)  # a draw left the calibrated range for some band
-        dm = np.where(bad, np.nan, r.dm).reshape(m, n)
-        eb = np.where(bad, np.nan, r.ebv).reshape(m, n)
+        y_d = obs.y[sl, None, :] + obs.sigma[sl, None, :] * np.stack([z[sl] for z in z_phot], axis=-1)
+        # a band without calibration must not poison the others through NaN * 0
+        missing = (np.isnan(absmag).astype(float) @ (obs.L != 0).T.astype(float)) > 0
+        model = np.where(missing, np.nan, np.nan_to_num(absmag) @ obs.L.T)
+        ydiff = y_d - model.reshape(m, n, K)
+        A = np.stack([np.broadcast_to(obs.L.sum(axis=1), (m, n, K)), (R @ obs.L.T).reshape(m, n, K)], axis=-1)
+        # the weights of the star's nominal fit, held fixed over its draws
+        theta = fit_draws(res.weights[sl], res.valid[sl], res.colour_known[sl], res.mag_known[sl], ydiff, A)
+        dm, eb = theta[..., 0], theta[..., 1]
         with np.errstate(invalid="ignore"), warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows give NaN, as wanted
             out["dm"][sl] = np.nanmean(dm, axis=1)

@@ -68,6 +68,9 @@ class SolverResult:
     uncalibrated: np.ndarray
     rv: np.ndarray
     e_rv: np.ndarray
+    valid: np.ndarray | None = None  # (N, K) observables used
+    weights: np.ndarray | None = None  # (N, K, K) inverse covariance, when asked for
+    mag_known: np.ndarray | None = None
 
     def p_value(self) -> np.ndarray:
         """Chi-square tail probability (NaN where dof is 0)."""
@@ -135,7 +138,7 @@ def _design(obs: Observables, R):
 
 
 def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
-          R, dR, sigma_rv=0.0, rv=3.1, rv_free=None):
+          R, dR, sigma_rv=0.0, rv=3.1, rv_free=None, keep_weights=False):
     """Fit distance modulus and E(B-V) for every star.
 
     Parameters
@@ -154,6 +157,8 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
         Rows whose R_V was fitted from the same photometry: their uncertainties
         come from the Fisher matrix of (dm, E(B-V), R_V) and one degree of
         freedom is spent on R_V.
+    keep_weights : bool
+        Also return the inverse covariance per star (for :func:`fit_draws`).
 
     Returns
     -------
@@ -210,4 +215,39 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
         chi2=chi2, dof=dof, n_used=n_used, colour_known=colour_known,
         uncalibrated=(uncalibrated & measured).any(axis=1),
         rv=np.broadcast_to(np.asarray(rv, float), (N,)).copy(), e_rv=e_rv,
+        valid=valid, weights=np.linalg.inv(C) if keep_weights else None, mag_known=mag_known,
     )
+
+
+def fit_draws(weights, valid, colour_known, mag_known, ydiff, A):
+    """Refit many draws per star with each star's weights held fixed.
+
+    Parameters
+    ----------
+    weights : (m, K, K) inverse covariance of each star's nominal fit
+        (:func:`solve` with ``keep_weights=True``).
+    valid : (m, K) observables that fit used; colour_known, mag_known : (m,) bool.
+    ydiff : (m, n, K) observables minus the drawn absolute magnitudes.
+    A : (m, n, K, 2) design matrices of the draws.
+
+    Returns
+    -------
+    (m, n, 2) distance modulus and E(B-V) per draw; NaN where a draw needs an
+    observable with no calibration (e.g. a drawn subtype beyond a table's end).
+    """
+    v = valid[:, None, :]
+    bad = (v & ~np.isfinite(ydiff)).any(axis=-1)
+    A = A * v[..., None]
+    y = np.where(v, ydiff, 0.0)
+    WA = np.einsum("mkj,mnjp->mnkp", weights, A)
+    F = np.einsum("mnkp,mnkq->mnpq", A, WA)
+    b = np.einsum("mnkp,mnk->mnp", WA, y)
+    F[..., 1, 1] += np.where(colour_known, 0.0, _FIXED_E)[:, None]
+    F[..., 0, 0] += np.where(mag_known, 0.0, _FIXED_E)[:, None]
+    det = F[..., 0, 0] * F[..., 1, 1] - F[..., 0, 1] * F[..., 1, 0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        dm = (F[..., 1, 1] * b[..., 0] - F[..., 0, 1] * b[..., 1]) / det
+        ebv = (F[..., 0, 0] * b[..., 1] - F[..., 1, 0] * b[..., 0]) / det
+    theta = np.stack([dm, np.where(colour_known[:, None], ebv, 0.0)], axis=-1)
+    theta[bad] = np.nan
+    return theta

@@ -68,8 +68,6 @@ OUTPUT_COLUMNS = {
     "period0_d": ("d", "fundamental-mode pulsation period used (first overtones converted)"),
 }
 
-#: Units and descriptions of every column specpar may add (extended by optional modules).
-COLUMN_INFO = dict(OUTPUT_COLUMNS)
 
 
 @dataclass
@@ -500,7 +498,6 @@ def _metadata(opts, cals, obs_names):
             "luminosity class; single stars, solar-neighbourhood metallicity and one extinction law "
             "with a single R_V along the line of sight are assumed. Systematic errors of tens of per "
             "cent in distance are typical of spectroscopic parallaxes."),
-        "columns": {k: v[1] for k, v in COLUMN_INFO.items()},
     }
 
 
@@ -691,6 +688,7 @@ def run_estimate(table, opts: EstimateOptions):
     }
     for k in ("dm", "e_dm", "dist_pc", "dist_lo_pc", "dist_hi_pc", "plx_phot_mas", "e_plx_phot_mas"):
         results[k] = np.where(nodist, np.nan, results[k])  # colours alone still give E(B-V)
+    info = dict(OUTPUT_COLUMNS)
     cep = rc.cep
     if cep is not None and cep.mask.any():
         # period-luminosity rows: full M_V error, no spectral type, the period actually used
@@ -702,7 +700,7 @@ def run_estimate(table, opts: EstimateOptions):
     if "plx" in prep.frame.columns:
         # trigonometric parallaxes: tension, diagnosis and combined distance
         from .parallax import COLUMNS as plx_columns, crosscheck
-        COLUMN_INFO.update(plx_columns)
+        info.update(plx_columns)
         extra, pflags, pdetail = crosscheck(prep.frame, results, cals=cals, sptnum=rc.sptnum,
                                             lc_bright=rc.lcb, lc_faint=rc.lcf, opts=opts)
         results.update(extra)
@@ -717,23 +715,24 @@ def run_estimate(table, opts: EstimateOptions):
             results[f"M_{name}"] = u.absmag[code, b]
             results[f"A_{name}"] = np.where(nodist, np.nan, ebv * R_rows[:, b])
     meta = _metadata(opts, cals, prep.obs_names)
+    meta["columns"] = {k: info[k][1] for k in results if k in info}
     if cep is not None:
         from .cepheid import load_pl_calibration
         meta["cepheid_calibration"] = load_pl_calibration().describe()
     if "plx" in prep.frame.columns:
         from .parallax import metadata as plx_metadata
         meta["parallax"] = plx_metadata(opts)
-    return attach_results(table, frame, results, meta)
+    return attach_results(table, frame, results, meta, info)
 
 
 def attach_results(table, frame, results, meta, info=None):
     """The input table (same type) with ``results`` appended as columns.
 
     Input columns whose names clash with a result are kept as ``input_<name>``;
-    units and descriptions come from ``info`` (default :data:`COLUMN_INFO`);
+    units and descriptions come from ``info`` (default :data:`OUTPUT_COLUMNS`);
     ``meta`` goes to ``meta['specpar']`` (``attrs`` for pandas).
     """
-    info = COLUMN_INFO if info is None else info
+    info = OUTPUT_COLUMNS if info is None else info
     clash = [k for k in results if k in frame.columns]
     if isinstance(table, pd.DataFrame):
         out = table.reset_index(drop=True).rename(columns={k: f"input_{k}" for k in clash})

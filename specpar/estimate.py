@@ -161,6 +161,8 @@ class PreparedInput:
 
 
 def to_frame(table) -> pd.DataFrame:
+    """The input as a pandas DataFrame in our conventions: masked cells become NaN
+    (numbers) or None (anything else), byte strings become text."""
     if isinstance(table, pd.DataFrame):
         return table.reset_index(drop=True)
     if isinstance(table, Table):
@@ -170,10 +172,14 @@ def to_frame(table) -> pd.DataFrame:
             if getattr(col, "ndim", 1) != 1:
                 continue  # multidimensional columns are carried through untouched
             data = np.ma.asarray(col)
+            if data.dtype.kind == "S":  # FITS text arrives as bytes
+                data = np.ma.array(np.char.decode(data.filled(b""), "utf-8", errors="replace"),
+                                   mask=np.ma.getmaskarray(data))
             if data.dtype.kind in "fc":
                 cols[name] = np.ma.filled(data.astype(float), np.nan)
             else:
-                vals = np.ma.filled(data.astype(object), None) if np.ma.isMaskedArray(data) else data.astype(object)
+                vals = np.ma.getdata(data).astype(object)
+                vals[np.ma.getmaskarray(data)] = None  # (np.ma.filled(x, None) would use x's fill value)
                 cols[name] = vals
         return pd.DataFrame(cols)
     raise TypeError(f"estimate() takes an astropy Table or a pandas DataFrame, not {type(table).__name__}")
@@ -185,10 +191,10 @@ def numeric_values(series: pd.Series):
         vals = series.to_numpy(dtype=float)
         given = ~np.isnan(vals)  # NaN means not measured; inf is a bad value
     else:
-        s = series.astype(object)
+        s = series.astype(object).map(lambda v: v.decode("utf-8", "replace") if isinstance(v, bytes) else v)
         given = s.map(lambda v: v is not None and not (isinstance(v, float) and np.isnan(v))
                       and str(v).strip() not in ("", "--", "nan", "NaN")).to_numpy(bool)
-        vals = pd.to_numeric(s.map(lambda v: str(v).strip() if isinstance(v, (str, bytes)) else v),
+        vals = pd.to_numeric(s.map(lambda v: v.strip() if isinstance(v, str) else v),
                              errors="coerce").to_numpy(dtype=float)
     bad = given & ~np.isfinite(vals)
     vals = np.where(np.isfinite(vals), vals, np.nan)

@@ -38,6 +38,16 @@ def guess_format(path, fmt=None) -> str:
                      f"explicitly ({', '.join(FORMATS)})")
 
 
+def _apply_mask_columns(frame: pd.DataFrame) -> pd.DataFrame:
+    """Honour astropy's way of storing masked columns in Parquet (``X`` plus ``X.mask``)."""
+    for name in [c for c in frame.columns if str(c).endswith(".mask") and str(c)[:-5] in frame.columns]:
+        base, mask = name[:-5], frame[name].to_numpy(bool)
+        col = frame[base].astype(float) if frame[base].dtype.kind in "iub" else frame[base]
+        frame[base] = col.where(~mask, np.nan if col.dtype.kind == "f" else None)
+        frame = frame.drop(columns=name)
+    return frame
+
+
 def read_table(path, fmt=None):
     """Read a table; one clear ValueError for a missing or unreadable file.
 
@@ -51,7 +61,7 @@ def read_table(path, fmt=None):
     try:
         if fmt == "parquet":
             # pandas reads Parquet directly (fast, keeps strings as objects)
-            return pd.read_parquet(path)
+            return _apply_mask_columns(pd.read_parquet(path))
         if fmt == "csv":
             t = Table.read(path, format="ascii.csv", comment="#")
         else:

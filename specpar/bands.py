@@ -8,7 +8,7 @@ adds its own independent scatter to all bands downstream of it.
 
 Effective wavelengths
 ---------------------
-- U B V Rc Ic: Bessell (2005, ARA&A 43, 293), Table 1, Vega-like SED (from memory).
+- U B V Rc Ic: Bessell (2005, ARA&A 43, 293), Table 1, for an A0 V spectrum (from memory).
 - J H Ks: Cohen, Wheaton & Megeath (2003, AJ 126, 1090), 2MASS isophotal
   wavelengths (from memory).
 - G BP RP: Gaia passbands, approximate mean wavelengths from Riello et al.

@@ -112,7 +112,7 @@ def test_parsec_in_light_years_from_astropy():
 
 
 def test_a0v_has_zero_intrinsic_colour():
-    # common practice (definition of the Vega-based UBV system): A0V has (B-V)_0 = 0
+    # common practice (zero point of the UBV system): A0V has (B-V)_0 = 0
     vals = _dwarf_values(["A0V"])
     assert vals.absmag[0, band_index("B")] - vals.absmag[0, band_index("V")] == pytest.approx(0.0, abs=0.005)
 

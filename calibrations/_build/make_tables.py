@@ -422,7 +422,20 @@ SRC_GAIA = ("computed from this row's V-Ic with the Gaia DR2 relations of "
             "0.1 mag, in G-V and BP-RP for V-Ic<2.7)")
 
 
-def build_giants():
+def grp_from_bprp(dwarfs, bprp):
+    """G-RP from BP-RP through the dwarf table's own sequence (Mamajek table via
+    meanstars). Assumes the relation between the two Gaia colours does not depend
+    on surface gravity; used for giants, whose published relations give no G-RP."""
+    x = np.ma.filled(np.ma.asarray(dwarfs["BP-RP"], dtype=float), np.nan)
+    y = np.ma.filled(np.ma.asarray(dwarfs["G-RP"], dtype=float), np.nan)
+    ok = np.isfinite(x) & np.isfinite(y)
+    order = np.argsort(x[ok])
+    xs, ys = x[ok][order], y[ok][order]
+    inside = np.isfinite(bprp) & (bprp >= xs[0]) & (bprp <= xs[-1])
+    return np.where(inside, np.interp(bprp, xs, ys), np.nan)
+
+
+def build_giants(dwarfs):
     bb = {s: bb_to_2mass(vk, jh, hk) for s, vk, jh, hk in BB88_III}
     cous = {s: (vr, vi) for s, vr, vi in COUSINS_III}
     rows = []
@@ -436,6 +449,7 @@ def build_giants():
             row["V-Rc"], row["V-Ic"] = cous[st]
             gv, bprp = gaia_dr2_from_vi(row["V-Ic"])
             row["G-V"], row["BP-RP"] = float(gv), float(bprp)
+            row["G-RP"] = float(grp_from_bprp(dwarfs, bprp))
         if mv is None:
             row["M_V"] = round(RC_MKS + row["V-Ks"], 2)
             parts.append("M_V: red-clump M_Ks=-1.61 of Hawkins et al. 2017 "
@@ -451,6 +465,9 @@ def build_giants():
             parts.append(f"V-Rc, V-Ic: {SRC_COUS}")
             if np.isfinite(row["G-V"]):
                 parts.append(f"G-V, BP-RP: {SRC_GAIA}")
+            if np.isfinite(row["G-RP"]):
+                parts.append("G-RP: from this row's BP-RP through the G-RP(BP-RP) sequence of the "
+                             "dwarf table (Mamajek table via meanstars; gravity dependence neglected)")
         parts.append("sig_M_V: common-practice default")
         row["source"] = "; ".join(parts)
         rows.append(row)
@@ -487,8 +504,9 @@ def build_giants():
         "relations (Evans et al. 2018) so that all tables share the DR2 "
         "system of the dwarf table; DR3 relations (Riello et al. 2021) "
         "differ by <~0.02 mag in this range. Gaia colours are given only "
-        "for V-Ic <= 2.7 (masked for M4-M5 III); G-RP is not given (no "
-        "published V-Ic relation used). Red-clump check: K0 III M_Ks = "
+        "for V-Ic <= 2.7 (masked for M4-M5 III); G-RP follows from BP-RP "
+        "through the dwarf table's G-RP(BP-RP) sequence (gravity dependence "
+        "neglected; no published V-Ic relation for G-RP was used). Red-clump check: K0 III M_Ks = "
         "M_V - (V-Ks) = -1.65 and K1 III -1.61, versus -1.61 (Hawkins et al. "
         "2017). B0-G5 III have only B-V and U-B.")
     return make_table(rows, meta)
@@ -810,7 +828,7 @@ def validate():
 
 def main():
     dwarfs = build_dwarfs()
-    giants = build_giants()
+    giants = build_giants(dwarfs)
     sg = {lc: build_supergiants(lc) for lc in ("Ib", "Iab", "Ia")}
     bright = build_bright_giants(giants)
     sub = build_subgiants(dwarfs, giants)

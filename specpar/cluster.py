@@ -101,6 +101,7 @@ from .bands import BAND_NAMES, band_index
 from .calibration import Calibration, default_calibrations, load_calibration
 from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check_law
 from .solver import dm_to_pc
+from .estimate import EstimateOptions, prepare_observables, to_frame
 
 __all__ = ["fit_cluster", "ClusterResult", "ClusterFlag", "simulate_cluster", "q_index",
            "intrinsic_bv_from_q", "ub_excess_ratio", "register_cli"]
@@ -484,7 +485,6 @@ class _Data:
 
 def _read_observables(frame, columns, default_error):
     """Observables as :func:`specpar.estimate` reads them (same columns and rules)."""
-    from .estimate import EstimateOptions, prepare_observables
     f = frame if "sptype" in frame.columns else frame.assign(sptype=None)
     return prepare_observables(f, EstimateOptions(columns=dict(columns or {}), default_error=default_error))
 
@@ -525,7 +525,7 @@ def _membership_prior(frame, column, flags):
     return np.clip(p, 1e-6, 1 - 1e-6)
 
 
-def prepare_observables(table, opts) -> _Data:
+def _cluster_data(table, opts) -> _Data:
     frame = to_frame(table)
     prep = _read_observables(frame, opts["columns"], opts["default_error"])
     N = len(frame)
@@ -576,11 +576,6 @@ def _finalise_data(d: _Data, usable: np.ndarray) -> None:
 
 _BAD_ROWS = (ClusterFlag.NO_ORDINATE | ClusterFlag.NO_COLOUR | ClusterFlag.MAG_LIMIT
              | ClusterFlag.MEMBERSHIP_INVALID | ClusterFlag.OUTSIDE_LOCUS)
-
-
-def to_frame(table) -> pd.DataFrame:
-    from .estimate import to_frame
-    return to_frame(table)
 
 
 # ============================================================================ colour space
@@ -893,7 +888,7 @@ def _two_colour_locus(locus: _Locus, step=0.02, mv_range=(-np.inf, np.inf)):
 
 def _two_colour_fit(ub, bv, cov, locus: _Locus, ebv_range, mv_range):
     """E(B-V) from the (U-B, B-V) plane alone: grid, refine, curvature error."""
-    vu, vb = ub[1], bv[1]  # these already hold the intrinsic width (see prepare_observables)
+    vu, vb = ub[1], bv[1]  # these already hold the intrinsic width (see _cluster_data)
     step = float(np.clip(1.2 * np.percentile(np.sqrt(np.minimum(vu, vb)), 5), *LOCUS_STEP))
     spt, ub0, bv0, logw = _two_colour_locus(locus, step, mv_range)
     det = vu * vb - cov ** 2
@@ -1064,7 +1059,7 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
     if field_model not in ("dwarfs+broad", "broad"):
         raise ValueError(f"field_model must be 'dwarfs+broad' or 'broad', not {field_model!r}")
     cal = _resolve_locus(locus)
-    d = prepare_observables(table, dict(columns=columns, default_error=default_error, bands=bands,
+    d = _cluster_data(table, dict(columns=columns, default_error=default_error, bands=bands,
                              magnitude=magnitude, width=width, bright_limit=bright_limit,
                              faint_limit=faint_limit, membership=membership))
     lin, quad = _reddening_vectors(law, rv, u_reddening)

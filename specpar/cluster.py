@@ -101,7 +101,7 @@ from .bands import BAND_NAMES, band_index
 from .calibration import Calibration, default_calibrations, load_calibration
 from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check_law
 from .solver import dm_to_pc
-from .estimate import EstimateOptions, prepare_observables, to_frame
+from .estimate import EstimateOptions, attach_results, prepare_observables, to_frame
 
 __all__ = ["fit_cluster", "ClusterResult", "ClusterFlag", "simulate_cluster", "q_index",
            "intrinsic_bv_from_q", "ub_excess_ratio", "register_cli"]
@@ -1334,7 +1334,6 @@ def _member_table(table, d: _Data, cols, used, flags, res):
                 "(flat mass-ratio distribution); the prior along the locus is uniform in the "
                 "ordinate's absolute magnitude; field stars follow a broad density; one extinction "
                 "law at fixed R_V for the whole cluster; evolved members count as outliers.")}
-    from .estimate import attach_results
     return attach_results(table, d.frame, results, meta, MEMBER_COLUMNS)
 
 

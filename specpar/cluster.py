@@ -53,9 +53,12 @@ Fit and uncertainty
 A coarse grid over (dm, E(B-V)) (single-star locus only, distance modulus
 binned per star) finds the starting point; then all four parameters
 (dm, E(B-V), binary fraction, field fraction) are fitted by L-BFGS-B with the
-analytic gradient. Uncertainties: ``method="profile"`` (default) inverts the
-Hessian of the log-likelihood at the maximum, i.e. the curvature of the
-profile likelihood of (dm, E(B-V)) with the fractions profiled out;
+analytic gradient. Uncertainties: ``method="profile"`` (default) uses the
+Hessian of the log-likelihood at the maximum (the curvature of the profile
+likelihood of (dm, E(B-V)) with the fractions profiled out) in the sandwich
+form H^-1 J H^-1, J the sum of the per-star score outer products (Huber
+1967), which stays honest when field stars or binaries are only approximately
+described by the mixture;
 ``method="bootstrap"`` refits ``n_boot`` resamples of the stars drawn with a
 seeded generator. Both are reproducible.
 
@@ -80,6 +83,8 @@ table v2022.04.16 (masses along the dwarf sequence).
 Hurley, J. & Tout, C. A. 1998, MNRAS 300, 977 (unresolved binaries in cluster
 colour-magnitude diagrams, up to 0.75 mag above the single-star sequence)
 (from memory).
+Huber, P. J. 1967, Proc. Fifth Berkeley Symp. Math. Stat. Prob. 1, 221
+(sandwich covariance under misspecification) (from memory).
 Byrd, R. H., Lu, P., Nocedal, J. & Zhu, C. 1995, SIAM J. Sci. Comput. 16, 1190
 (L-BFGS-B).
 Efron, B. 1979, Ann. Statist. 7, 1 (bootstrap).
@@ -699,8 +704,10 @@ def _components(model, theta, want_post=False):
     return out
 
 
-def _mixture(model, theta, comp):
-    """Log-likelihood, its gradient in (dm, E, f_bin, f_field) and responsibilities."""
+def _mixture(model, theta, comp, per_star=False):
+    """Log-likelihood, its gradient in (dm, E, f_bin, f_field) and responsibilities.
+
+    With ``per_star`` the gradient comes back per star, shape (n_stars, 4)."""
     d = model["data"]
     fb, ff = theta[2], theta[3]
     with np.errstate(divide="ignore"):
@@ -713,15 +720,15 @@ def _mixture(model, theta, comp):
         tF = l1pi + model["logF"]
     lT = np.logaddexp(np.logaddexp(tS, tB), tF)
     rS, rB, rF = np.exp(tS - lT), np.exp(tB - lT), np.exp(tF - lT)
-    g = np.zeros(4)
-    g[:2] = (rS[:, None] * comp["gS"] + rB[:, None] * comp["gB"]).sum(axis=0)
+    g = np.zeros((lT.size, 4))
+    g[:, :2] = rS[:, None] * comp["gS"] + rB[:, None] * comp["gB"]
     if model["binary"] is not None:
-        g[2] = (np.exp(lpi + comp["lB"] - lT) - np.exp(lpi + comp["lS"] - lT)).sum()
+        g[:, 2] = np.exp(lpi + comp["lB"] - lT) - np.exp(lpi + comp["lS"] - lT)
     if d.prior is None:
         with np.errstate(divide="ignore"):
             lM = np.logaddexp(np.log1p(-fb) + comp["lS"], np.log(fb) + comp["lB"])
-        g[3] = (np.exp(model["logF"] - lT) - np.exp(lM - lT)).sum()
-    return float(lT.sum()), g, (rS, rB, rF)
+        g[:, 3] = np.exp(model["logF"] - lT) - np.exp(lM - lT)
+    return float(lT.sum()), (g if per_star else g.sum(axis=0)), (rS, rB, rF)
 
 
 def _negloglike(theta, model):
@@ -800,8 +807,9 @@ def _coarse_start(model, n_max=150, dm_step=0.05):
 
 # ============================================================================ uncertainty
 
-def _hessian_cov(model, theta):
-    """Covariance of the free parameters from the numerical Hessian of -log L."""
+def _hessian_cov(model, theta, robust=False):
+    """Covariance of the free parameters from the numerical Hessian of -log L
+    (or the sandwich estimator built on it, with ``robust``)."""
     bounds = _bounds(model)
     free = [i for i, (lo, hi) in enumerate(bounds) if hi > lo
             and min(theta[i] - lo, hi - theta[i]) > 2e-3]
@@ -817,10 +825,15 @@ def _hessian_cov(model, theta):
     cov = np.full((4, 4), np.nan)
     try:
         inv = np.linalg.inv(H)
-        if np.all(np.diag(inv) > 0):
-            cov[np.ix_(free, free)] = inv
     except np.linalg.LinAlgError:
-        pass
+        return cov
+    if robust:
+        # Huber (1967) sandwich H^-1 J H^-1 with J = sum of per-star score outer products:
+        # stays honest when the mixture model is only approximately right
+        g = _mixture(model, theta, _components(model, theta), per_star=True)[1][:, free]
+        inv = inv @ (g.T @ g) @ inv
+    if np.all(np.diag(inv) > 0):
+        cov[np.ix_(free, free)] = inv
     return cov
 
 
@@ -1030,7 +1043,7 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
     u_reddening : {"empirical", "law"}
         U-band reddening from E(U-B)/E(B-V) = 0.72 + 0.05 E(B-V) or from the law.
     method : {"profile", "bootstrap"}
-        Uncertainties from the likelihood curvature or from ``n_boot`` seeded resamples.
+        Uncertainties from the likelihood curvature (sandwich form) or from ``n_boot`` seeded resamples.
     seed : int
         Seed of the bootstrap.
     default_error : float
@@ -1087,7 +1100,7 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
         model["logF"] = np.logaddexp(dwarfs, model["logF"]) - np.log(2.0)
     ff0 = 0.0 if d.prior is not None else 0.2
     theta, ll = _maximise(model, [dm0, e0, 0.3 if binary is not None else 0.0, ff0])
-    cov = _hessian_cov(model, theta)
+    cov = _hessian_cov(model, theta, robust=True)
     boot = _bootstrap(model, theta, n_boot, seed) if method == "bootstrap" else None
     opts["seed"] = int(seed)
     return _assemble_result(table, d, model, theta, ll, cov, boot, opts, loc, two_colour)
@@ -1491,7 +1504,7 @@ def register_cli(sub):
     p.add_argument("--u-reddening", choices=("empirical", "law"), default="empirical",
                    help="U-band reddening: E(U-B)/E(B-V) = 0.72 + 0.05 E(B-V) (default) or the law")
     p.add_argument("--bootstrap", type=int, metavar="N", default=0,
-                   help="uncertainties from N bootstrap resamples (default: likelihood curvature)")
+                   help="uncertainties from N bootstrap resamples (default: likelihood curvature, sandwich form)")
     p.add_argument("--seed", type=int, default=0, help="seed of the bootstrap (default 0)")
     p.add_argument("--col", action="append", metavar="OURS=YOURS", help="map a column name (repeatable)")
     p.add_argument("--in-format", help="input format if the extension does not tell")

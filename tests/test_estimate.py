@@ -6,7 +6,7 @@ import pytest
 from astropy.table import Table
 
 import specpar
-from specpar.bands import band_index
+from specpar.bands import CALIBRATION_COLOURS, band_index
 from specpar.calibration import default_calibrations, load_calibration, calibration_dir
 from specpar.extinction import band_coefficients
 from specpar.flags import Flag
@@ -65,10 +65,11 @@ def test_type_outside_calibration_flagged_no_extrapolation():
 
 
 def test_band_without_calibration_left_out_and_flagged():
-    cal = default_calibrations().by_class["Ia"]
-    assert "Ks" not in cal.bands  # the supergiant table gives no (V-Ks)_0
-    row = synth("B5Ia", 12.0, 0.8, ["B", "V"])
-    row.update(Ks=8.0, e_Ks=0.02)
+    # the giant table gives no (V-Ic)_0 for M6-M8 III (none published to hand)
+    cal = default_calibrations().by_class["III"]
+    assert np.isnan(cal.evaluate(np.array([66.0])).colours[0, CALIBRATION_COLOURS.index("V-Ic")])
+    row = synth("M6III", 12.0, 0.8, ["B", "V"])
+    row.update(Ic=8.0, e_Ic=0.02)
     out = specpar.estimate(pd.DataFrame([row]))
     assert out["flags"][0] & Flag.BAND_UNCALIBRATED and out["n_obs"][0] == 2
     assert out["dm"][0] == pytest.approx(12.0, abs=1e-6)

@@ -17,6 +17,9 @@ What it does
   and every row's ``source`` says so.  A few columns are computed from those
   literal numbers with published transformations (Carpenter 2001 for 2MASS,
   Evans et al. 2018 for Gaia DR2); the code that does this is below.
+* Section 6 fills the colours other than B-V, U-B of the non-dwarf classes
+  (V-Rc, V-Ic, V-Ks, J-H, H-Ks, G-V, BP-RP, G-RP) and adds rows K4-K5 IV and
+  M6-M8 III; its header comment states the rules.
 
 Conventions: sptnum O0=0, B0=10, A0=20, F0=30, G0=40, K0=50, M0=60.
 All magnitudes and colours are in mag.  Missing values are masked.
@@ -504,11 +507,12 @@ def build_giants(dwarfs):
         "relations (Evans et al. 2018) so that all tables share the DR2 "
         "system of the dwarf table; DR3 relations (Riello et al. 2021) "
         "differ by <~0.02 mag in this range. Gaia colours are given only "
-        "for V-Ic <= 2.7 (masked for M4-M5 III); G-RP follows from BP-RP "
+        "for V-Ic <= 2.7 (masked for M4-M8 III); G-RP follows from BP-RP "
         "through the dwarf table's G-RP(BP-RP) sequence (gravity dependence "
         "neglected; no published V-Ic relation for G-RP was used). Red-clump check: K0 III M_Ks = "
         "M_V - (V-Ks) = -1.65 and K1 III -1.61, versus -1.61 (Hawkins et al. "
-        "2017). B0-G5 III have only B-V and U-B.")
+        "2017). M6-M8 III rows and the colours of B0-G5 III: see "
+        "colour_notes.")
     return make_table(rows, meta)
 
 
@@ -615,9 +619,7 @@ def build_supergiants(lc):
         "recalled, not copied; individual M_V may be off by 0.2-0.3 mag "
         "and should be checked against the printed table. SK82 gives one "
         "colour sequence for all supergiants; it is repeated in the Ib, Iab "
-        "and Ia files. No published V-Rc, V-Ic, 2MASS or Gaia intrinsic "
-        "colours of supergiants were available to the author, so those "
-        "columns are masked rather than estimated.")
+        "and Ia files. Colours other than B-V, U-B: see colour_notes.")
     return make_table(rows, meta)
 
 
@@ -684,8 +686,7 @@ def build_bright_giants(giants):
         "against the printed table). No separate class II colour sequence "
         "was used: (B-V)0 and (U-B)0 are the mean of the class III sequence "
         "(giants_III.ecsv) and the class I sequence (supergiants files) at "
-        "the same type. Other colours are masked because the supergiant "
-        "sequence has none.")
+        "the same type. Other colours: see colour_notes.")
     return make_table(rows, meta)
 
 
@@ -743,9 +744,309 @@ def build_subgiants(dwarfs, giants):
         "against the printed table). No separate class IV colour sequence "
         "was used: every colour is the mean of dwarfs_V.ecsv and "
         "giants_III.ecsv at the same sptnum (PCHIP in sptnum); a colour is "
-        "masked where either class lacks it (giants have only B-V, U-B "
-        "before G8).")
+        "masked where either class lacks it. K4-K5 IV rows: M_V from "
+        "memory, see their source. Colours: see colour_notes.")
     return make_table(rows, meta)
+
+
+# ===========================================================================
+# 6. Intrinsic colours other than B-V, U-B of the non-dwarf classes, and the
+#    extra rows IV K4-K5, III M6-M8 (owner of this block: colour helper)
+# ===========================================================================
+# Every non-dwarf row gets V-Rc, V-Ic, V-Ks, J-H, H-Ks, G-V, BP-RP, G-RP here,
+# after the class builders above have set M_V, sig_M_V, B-V, U-B.  Rules:
+#
+# * III, B0-G5, and supergiants O9-K3 ((B-V)0 <= LOCUS_BV_MAX): the colours of
+#   the composite colour-colour locus at the row's own (B-V)0.  The locus is
+#   the Mamajek dwarf sequence (meanstars file, copied) for (B-V)0 < 0.90 and
+#   the giant sequence of Bessell & Brett 1988 / Bessell 1979 (G8-K5 III) for
+#   (B-V)0 >= 0.94.  Colour-colour relations of early-type and F-G stars
+#   depend little on gravity (common practice; at (B-V)0 = 0.94-1.00 the two
+#   sequences agree to 0.03 mag in V-Ic and 0.08 mag in V-Ks, checked in
+#   check_locus_junction below).
+# * III, G8-M5: Bessell & Brett 1988 Table III (2MASS via Carpenter 2001) and
+#   Bessell 1979 Cousins colours, as built by build_giants.
+# * III, M6-M8 (new rows): EXTRA_III below.
+# * Supergiants K5-M2: (B-V)0 saturates near 1.6 for K5-M giants and
+#   supergiants, so matching on it fails; the giant colours at the same
+#   spectral type are adopted.
+# * II: mean of the class III and class I colours at the same type (as the
+#   B-V, U-B of class II are built).
+# * IV: mean of the class V and class III colours at the same type.
+# * Gaia G-V, BP-RP: from the row's V-Ic with the Evans et al. 2018 DR2
+#   relations (gaia_dr2_from_vi); G-RP from BP-RP along the dwarf sequence
+#   (grp_from_bprp).  Means and same-type copies carry the Gaia colours too.
+MY_COLOURS = ["V-Rc", "V-Ic", "V-Ks", "J-H", "H-Ks", "G-V", "BP-RP", "G-RP"]
+LOCUS_COLOURS = ["V-Rc", "V-Ic", "V-Ks", "J-H", "H-Ks"]
+LOCUS_DWARF_BV_MAX = 0.90   # dwarf rows with (B-V)0 below this enter the locus
+LOCUS_GIANTS = ["G8", "K0", "K1", "K2", "K3", "K4", "K5"]  # giant rows used
+LOCUS_BV_MAX = 1.46         # rows redder than this use same-type colours
+
+SRC_LOCUS = ("{cols}: colour-colour locus at this row's (B-V)0 = {bv:+.3f} "
+             "(Mamajek dwarf table v2022.04.16 in meanstars, copied, for "
+             "(B-V)0 < 0.90; Bessell & Brett 1988 Table III giants via "
+             "Carpenter 2001 and Bessell 1979 Cousins colours, from memory, "
+             "for (B-V)0 >= 0.94; gravity dependence neglected, common "
+             "practice)")
+SRC_GAIA_ROW = ("G-V, BP-RP: from this row's V-Ic with Evans et al. 2018 "
+                "Table A.2 (coefficients from memory); G-RP: from BP-RP "
+                "along the dwarf table's G-RP(BP-RP) sequence (gravity "
+                "dependence neglected)")
+
+# New class III rows beyond M5 (all from memory; the late-M giants are
+# semiregular and Mira variables, so every number is uncertain by ~0.1 mag in
+# B-V and by 0.2-0.5 mag in V-Ks; sig_M_V 1.0).
+#   V-K, J-H, H-K (Johnson-Glass, Bessell & Brett 1988 Table III, M6 and M7;
+#   M8 from Fluks et al. 1994 Table 7, approximate); converted to 2MASS with
+#   Carpenter 2001 like the other giants.
+#   M_V = M_Ks + (V-Ks) with M_Ks of late-M giants -7.0 (M6), -7.3 (M7),
+#   -7.6 (M8), read from the semiregular/Mira period-luminosity relations
+#   (Whitelock, Feast & van Leeuwen 2008), from memory.
+#   (B-V)0: 1.60, 1.55, 1.50 (TiO depresses V; from memory, +-0.1).
+#   No Cousins or Gaia colours: none recalled with confidence (masked).
+# (sptype, B-V, V-K_BB, J-H_BB, H-K_BB, M_Ks)
+EXTRA_III = [
+    ("M6", 1.60, 6.84, 0.96, 0.30, -7.0),
+    ("M7", 1.55, 7.80, 0.96, 0.33, -7.3),
+    ("M8", 1.50, 9.00, 0.95, 0.38, -7.6),
+]
+EXTRA_III_SIG = 1.0
+
+# New class IV rows K4, K5: M_V from memory (no printed table recalled: the
+# lower red-giant branch just above the K3 IV value; Hipparcos K4-K5 IV stars
+# scatter around M_V ~ +3), sig_M_V 0.8.  B-V, U-B and colours: mean of the
+# class V and class III values at the same type (as for the other IV rows).
+EXTRA_IV = [("K4", +3.1), ("K5", +3.0)]
+EXTRA_IV_SIG = 0.8
+
+REF_COLOURS = {
+    "F94": ("Fluks, M. A. et al. 1994, A&AS 105, 311, 'The photospheric "
+            "spectra of M giants and synthetic photometry', Table 7 "
+            "(intrinsic colours of M0-M10 giants); bibcode "
+            "1994A&AS..105..311F (from memory, approximate)"),
+    "W08": ("Whitelock, P. A., Feast, M. W. & van Leeuwen, F. 2008, MNRAS "
+            "386, 313, 'AGB variables and the Mira period-luminosity "
+            "relation'; bibcode 2008MNRAS.386..313W (M_Ks of late-M giants, "
+            "from memory)"),
+}
+
+
+def _table_rows(t):
+    """Astropy table -> list of row dicts (masked -> NaN), for rebuilding."""
+    rows = []
+    for r in t:
+        d = {"sptype": str(r["sptype"]), "M_V": float(r["M_V"]),
+             "sig_M_V": float(r["sig_M_V"]), "source": str(r["source"])}
+        for c in COLOURS:
+            v = r[c]
+            d[c] = np.nan if np.ma.is_masked(v) else float(v)
+        rows.append(d)
+    return rows
+
+
+def _strip_colour_sources(source):
+    """Drop the statements about MY_COLOURS from a row's source string (parts
+    are '; '-separated and start with 'col, col: ...'); keep the rest."""
+    keep = []
+    for part in source.split("; "):
+        head, sep, tail = part.partition(": ")
+        names = [n.strip() for n in head.split(",")]
+        if sep and all(n in COLOURS for n in names):
+            rest = [n for n in names if n not in MY_COLOURS]
+            if rest:
+                keep.append(", ".join(rest) + ": " + tail)
+        else:
+            keep.append(part)
+    return "; ".join(keep)
+
+
+def colour_locus(dwarfs, giants):
+    """Composite (B-V)0 -> colour locus: {colour: (bv, value)} arrays."""
+    xd, yd = {}, {}
+    bvd = np.asarray(dwarfs["B-V"], float)
+    use_d = bvd < LOCUS_DWARF_BV_MAX
+    gsel = np.isin(np.asarray(giants["sptype"]), LOCUS_GIANTS)
+    bvg = np.asarray(giants["B-V"], float)[gsel]
+    locus = {}
+    for c in LOCUS_COLOURS:
+        _, vd = _seq(dwarfs, c)
+        _, vg = _seq(giants, c)
+        x = np.concatenate([bvd[use_d], bvg])
+        y = np.concatenate([vd[use_d], vg[gsel]])
+        ok = np.isfinite(y)
+        assert np.all(np.diff(x[ok]) > 0), f"locus {c}: B-V not increasing"
+        locus[c] = (x[ok], y[ok])
+    return locus
+
+
+def locus_at(locus, bv):
+    """Colours of the composite locus at (B-V)0 = bv (PCHIP; NaN outside)."""
+    return {c: float(pchip_at(x, y, [bv])[0]) for c, (x, y) in locus.items()}
+
+
+def _gaia_from_row(row, dwarfs):
+    gv, bprp = gaia_dr2_from_vi(row.get("V-Ic", np.nan))
+    row["G-V"], row["BP-RP"] = float(gv), float(bprp)
+    row["G-RP"] = float(grp_from_bprp(dwarfs, float(bprp)))
+
+
+def _set_meta_range(t):
+    """Rewrite the 'Xn-Ym' range at the end of the title after the rows changed."""
+    title = t.meta["title"]
+    head = title.rsplit(",", 1)[0] if "," in title else title
+    t.meta["title"] = f"{head}, {t['sptype'][0]}-{t['sptype'][-1]}"
+
+
+def extend_giants(giants):
+    """Append the M6-M8 III rows (EXTRA_III) to the giant table."""
+    rows = _table_rows(giants)
+    have = {r["sptype"] for r in rows}
+    for st, bv, vk, jh, hk, mks in EXTRA_III:
+        if st in have:
+            continue
+        vks, jh2, hks = bb_to_2mass(vk, jh, hk)
+        rows.append({
+            "sptype": st, "B-V": bv, "U-B": np.nan,
+            "M_V": round(mks + vks, 2), "sig_M_V": EXTRA_III_SIG,
+            "V-Ks": vks, "J-H": jh2, "H-Ks": hks,
+            "source": (f"M_V: M_Ks = {mks} of late-M giants (Whitelock et al. "
+                       "2008 period-luminosity relations, from memory) plus "
+                       "this row's V-Ks; B-V: from memory (+-0.1); "
+                       + ("V-Ks, J-H, H-Ks: Bessell & Brett 1988 Table III "
+                          "(from memory)" if st != "M8" else
+                          "V-Ks, J-H, H-Ks: Fluks et al. 1994 Table 7 (from "
+                          "memory, approximate)")
+                       + ", transformed to 2MASS with Carpenter 2001 App. A; "
+                       "V-Rc, V-Ic, Gaia: none recalled (masked); U-B: none; "
+                       "sig_M_V: common-practice default for variable late-M "
+                       "giants")})
+    t = make_table(rows, OrderedDict(giants.meta))
+    t.meta["references"] = list(giants.meta["references"]) + [
+        REF_COLOURS["F94"], REF_COLOURS["W08"]]
+    _set_meta_range(t)
+    return t
+
+
+def extend_subgiants(sub, dwarfs, giants):
+    """Append the K4-K5 IV rows (EXTRA_IV); B-V, U-B = mean of V and III."""
+    rows = _table_rows(sub)
+    have = {r["sptype"] for r in rows}
+    for st, mv in EXTRA_IV:
+        if st in have:
+            continue
+        n = sptnum(st)
+        row = {"sptype": st, "M_V": mv, "sig_M_V": EXTRA_IV_SIG}
+        for c in ("B-V", "U-B"):
+            vv = pchip_at(*_seq(dwarfs, c), [n])[0]
+            v3 = pchip_at(*_seq(giants, c), [n])[0]
+            row[c] = round(0.5 * (vv + v3), 3)
+        row["source"] = ("M_V: from memory (lower red-giant branch just "
+                         "above K3 IV; no printed table), approximate; "
+                         "B-V, U-B: mean of the class V value (Mamajek table "
+                         "v2022.04.16 in meanstars, copied) and the class III "
+                         "value (giants_III.ecsv, from memory of SK82) at "
+                         "this type; sig_M_V: common-practice default, wider "
+                         "for these rows")
+        rows.append(row)
+    t = make_table(rows, OrderedDict(sub.meta))
+    _set_meta_range(t)
+    return t
+
+
+def _finish(t, rows, note):
+    out = make_table(rows, OrderedDict(t.meta))
+    out.meta["colour_notes"] = note
+    return out
+
+
+def add_giant_colours(giants, dwarfs):
+    """Fill V-Rc ... G-RP of the B0-G5 III rows from the colour locus."""
+    locus = colour_locus(dwarfs, giants)
+    rows = _table_rows(giants)
+    for row in rows:
+        if np.isfinite(row["V-Ks"]) or np.isfinite(row["V-Ic"]):
+            continue  # G8-M8: Bessell & Brett / Bessell / EXTRA_III values
+        row.update(locus_at(locus, row["B-V"]))
+        _gaia_from_row(row, dwarfs)
+        src = _strip_colour_sources(row["source"])
+        have = [c for c in LOCUS_COLOURS if np.isfinite(row[c])]
+        row["source"] = "; ".join([src, SRC_LOCUS.format(cols=", ".join(have), bv=row["B-V"]),
+                                   SRC_GAIA_ROW])
+    return _finish(giants, rows, (
+        "Colours other than B-V, U-B: B0-G5 III from the composite colour-"
+        "colour locus at the row's (B-V)0 (Mamajek dwarf sequence for "
+        "(B-V)0 < 0.90, Bessell & Brett 1988 / Bessell 1979 giants G8-K5 "
+        "for (B-V)0 >= 0.94); G8-M5 III: Bessell & Brett 1988 Table III "
+        "(2MASS via Carpenter 2001), Bessell 1979 Cousins; M6-M8 III: "
+        "Bessell & Brett 1988 / Fluks et al. 1994, V-Ks, J-H, H-Ks only. "
+        "Gaia colours from V-Ic (Evans et al. 2018) for V-Ic <= 2.7. All "
+        "from memory except the dwarf locus."))
+
+
+def add_supergiant_colours(sg, dwarfs, giants):
+    """Fill V-Rc ... G-RP of a supergiant table (Ib, Iab or Ia)."""
+    locus = colour_locus(dwarfs, giants)
+    rows = _table_rows(sg)
+    for row in rows:
+        src = _strip_colour_sources(row["source"])
+        if row["B-V"] <= LOCUS_BV_MAX:
+            row.update(locus_at(locus, row["B-V"]))
+            _gaia_from_row(row, dwarfs)
+            have = [c for c in LOCUS_COLOURS if np.isfinite(row[c])]
+            parts = [SRC_LOCUS.format(cols=", ".join(have), bv=row["B-V"]), SRC_GAIA_ROW]
+        else:
+            n = sptnum(row["sptype"])
+            for c in MY_COLOURS:
+                row[c] = float(pchip_at(*_seq(giants, c), [n])[0])
+            parts = [", ".join(MY_COLOURS) + ": class III values at the same "
+                     "type (giants_III.ecsv: Bessell & Brett 1988, Bessell "
+                     "1979, Evans et al. 2018, from memory), because (B-V)0 "
+                     "saturates for K5-M stars; M supergiants may be redder "
+                     "by up to ~0.3 mag in V-Ks"]
+        row["source"] = "; ".join([src] + parts)
+    return _finish(sg, rows, (
+        "Colours other than B-V, U-B: O9-K3 from the composite colour-colour "
+        "locus at the row's (B-V)0 (Mamajek dwarf sequence, copied, for "
+        "(B-V)0 < 0.90; Bessell & Brett 1988 / Bessell 1979 giants G8-K5 "
+        "for (B-V)0 >= 0.94, from memory); K5-M2: class III colours at the "
+        "same type. Gaia colours from V-Ic (Evans et al. 2018). Not "
+        "modelled: free-free infrared excess from the winds of OB "
+        "supergiants (a few hundredths of a mag in H-Ks for Ia stars)."))
+
+
+def add_mean_colours(t, a, b, label_a, label_b):
+    """Fill MY_COLOURS of table t with the mean of tables a and b at the same
+    sptnum (PCHIP in sptnum; masked where either lacks the colour)."""
+    rows = _table_rows(t)
+    for row in rows:
+        n = sptnum(row["sptype"])
+        for c in MY_COLOURS:
+            va = pchip_at(*_seq(a, c), [n])[0]
+            vb = pchip_at(*_seq(b, c), [n])[0]
+            row[c] = 0.5 * (va + vb) if np.isfinite(va + vb) else np.nan
+        have = [c for c in MY_COLOURS if np.isfinite(row[c])]
+        src = _strip_colour_sources(row["source"])
+        if have:
+            src += (f"; {', '.join(have)}: mean of the {label_a} and "
+                    f"{label_b} values at this type")
+        row["source"] = src
+    return _finish(t, rows, (
+        f"Colours other than B-V, U-B: mean of the {label_a} and {label_b} "
+        "tables at the same type (PCHIP in sptnum); masked where either "
+        "lacks the colour."))
+
+
+def check_locus_junction(dwarfs, giants):
+    """Print how the dwarf and giant colour sequences meet at (B-V)0 ~ 0.94."""
+    for st in ("G8", "K0"):
+        g = giants[giants["sptype"] == st][0]
+        for c in ("V-Ic", "V-Ks", "J-H", "H-Ks"):
+            x, y = _seq(dwarfs, "B-V")[1], _seq(dwarfs, c)[1]
+            ok = np.isfinite(y)
+            dv = float(np.interp(g["B-V"], x[ok], y[ok]))
+            print(f"check locus junction {st} III (B-V)0={g['B-V']:.2f}: {c} "
+                  f"giant {g[c]:.3f} vs dwarf at same B-V {dv:.3f} "
+                  f"(diff {g[c] - dv:+.3f})")
 
 
 # ===========================================================================
@@ -829,9 +1130,15 @@ def validate():
 def main():
     dwarfs = build_dwarfs()
     giants = build_giants(dwarfs)
-    sg = {lc: build_supergiants(lc) for lc in ("Ib", "Iab", "Ia")}
-    bright = build_bright_giants(giants)
-    sub = build_subgiants(dwarfs, giants)
+    # colour block (section 6): extra rows, then the colours of every class
+    check_locus_junction(dwarfs, giants)
+    giants = add_giant_colours(extend_giants(giants), dwarfs)
+    sg = {lc: add_supergiant_colours(build_supergiants(lc), dwarfs, giants)
+          for lc in ("Ib", "Iab", "Ia")}
+    bright = add_mean_colours(build_bright_giants(giants), giants, sg["Ib"],
+                              "class III", "class Ib")
+    sub = extend_subgiants(build_subgiants(dwarfs, giants), dwarfs, giants)
+    sub = add_mean_colours(sub, dwarfs, giants, "class V", "class III")
     check_gaia_relations(dwarfs)
     write(dwarfs, "dwarfs_V.ecsv")
     write(sub, "subgiants_IV.ecsv")

@@ -133,7 +133,7 @@ def test_simple_level():
     (dict(bands=["V", "Q"]), "unknown band"),
     (dict(bands=["B", "Ks"]), "lack V"),
     (dict(types=["X5"]), "not temperature classes"),
-    (dict(classes=["Ia"], bands=["V", "J"]), "no tabulated type"),
+    (dict(classes=["III"], types=["B"], bands=["V", "RP"]), "no tabulated type"),  # B giants: no G-RP
     (dict(classes=["VII"]), "no calibration"),
     (dict(error_mag=0), "error_mag"),
 ])

@@ -819,11 +819,32 @@ EXTRA_III_SIG = 1.0
 EXTRA_IV = [("K4", +3.1), ("K5", +3.0)]
 EXTRA_IV_SIG = 0.8
 
+# V-Ic of M0-M5 III fitted to Hipparcos V-I (ESA 1997) of 56 class III stars
+# with EVEN HIP numbers (odd numbers held out for tests), measured V-I (source
+# codes A-K), parallax > 5 mas; quadratic in sptnum, 3-sigma clipped, rms 0.16
+# mag; printed by calibrations/_build/fit_mgiant_vi.py and copied here.  The
+# remembered Bessell values (M4 2.80, M5 3.50) were 0.3-0.7 mag too red.
+# (sptype: (V-Ic, formal error))
+MGIANT_VI_FIT = OrderedDict([
+    ("M0", (1.734, 0.045)), ("M1", (1.875, 0.028)), ("M2", (2.051, 0.030)),
+    ("M3", (2.261, 0.029)), ("M4", (2.505, 0.039)), ("M5", (2.784, 0.077)),
+])
+MGIANT_VRC_MASK = ("M4", "M5")  # remembered V-Rc inconsistent with the fitted V-Ic
+SRC_MGIANT_VI = ("V-Ic: fitted to Hipparcos V-I (ESA 1997) of 56 even-HIP class "
+                 "III M0-M5 stars with measured V-I and parallax > 5 mas "
+                 "(quadratic in type, 3-sigma clipped; fit_mgiant_vi.py), "
+                 "{vi:.3f} +- {err:.3f}")
+
 REF_COLOURS = {
     "F94": ("Fluks, M. A. et al. 1994, A&AS 105, 311, 'The photospheric "
             "spectra of M giants and synthetic photometry', Table 7 "
             "(intrinsic colours of M0-M10 giants); bibcode "
             "1994A&AS..105..311F (from memory, approximate)"),
+    "HIP": ("ESA 1997, The Hipparcos and Tycho Catalogues, ESA SP-1200, "
+            "Hipparcos main catalogue (CDS I/239), fields V-I (H40), its "
+            "source (H42), parallax (H11) and spectral type (H76); used to "
+            "fit V-Ic of M0-M5 III on even HIP numbers (odd numbers held "
+            "out for tests)"),
     "W08": ("Whitelock, P. A., Feast, M. W. & van Leeuwen, F. 2008, MNRAS "
             "386, 313, 'AGB variables and the Mira period-luminosity "
             "relation'; bibcode 2008MNRAS.386..313W (M_Ks of late-M giants, "
@@ -844,15 +865,17 @@ def _table_rows(t):
     return rows
 
 
-def _strip_colour_sources(source):
-    """Drop the statements about MY_COLOURS from a row's source string (parts
-    are '; '-separated and start with 'col, col: ...'); keep the rest."""
+def _strip_colour_sources(source, drop=None):
+    """Drop the statements about the colours ``drop`` (default MY_COLOURS) from
+    a row's source string (parts are '; '-separated and start with
+    'col, col: ...'); keep the rest."""
+    drop = MY_COLOURS if drop is None else drop
     keep = []
     for part in source.split("; "):
         head, sep, tail = part.partition(": ")
         names = [n.strip() for n in head.split(",")]
         if sep and all(n in COLOURS for n in names):
-            rest = [n for n in names if n not in MY_COLOURS]
+            rest = [n for n in names if n not in drop]
             if rest:
                 keep.append(", ".join(rest) + ": " + tail)
         else:
@@ -964,23 +987,42 @@ def add_giant_colours(giants, dwarfs):
     locus = colour_locus(dwarfs, giants)
     rows = _table_rows(giants)
     for row in rows:
+        if row["sptype"] in MGIANT_VI_FIT:
+            vi, err = MGIANT_VI_FIT[row["sptype"]]
+            row["V-Ic"] = vi
+            drop = ["V-Ic", "G-V", "BP-RP", "G-RP"]
+            if row["sptype"] in MGIANT_VRC_MASK:
+                row["V-Rc"] = np.nan
+                drop.append("V-Rc")
+            _gaia_from_row(row, dwarfs)
+            parts = [_strip_colour_sources(row["source"], drop),
+                     SRC_MGIANT_VI.format(vi=vi, err=err)]
+            if np.isfinite(row["G-V"]):
+                parts.append(SRC_GAIA_ROW)
+            row["source"] = "; ".join(parts)
+            continue
         if np.isfinite(row["V-Ks"]) or np.isfinite(row["V-Ic"]):
-            continue  # G8-M8: Bessell & Brett / Bessell / EXTRA_III values
+            continue  # G8-K5, M6-M8: Bessell & Brett / Bessell / EXTRA_III values
         row.update(locus_at(locus, row["B-V"]))
         _gaia_from_row(row, dwarfs)
         src = _strip_colour_sources(row["source"])
         have = [c for c in LOCUS_COLOURS if np.isfinite(row[c])]
         row["source"] = "; ".join([src, SRC_LOCUS.format(cols=", ".join(have), bv=row["B-V"]),
                                    SRC_GAIA_ROW])
-    return _finish(giants, rows, (
+    out = _finish(giants, rows, (
         "Colours other than B-V, U-B: B0-G5 III from the composite colour-"
         "colour locus at the row's (B-V)0 (Mamajek dwarf sequence for "
         "(B-V)0 < 0.90, Bessell & Brett 1988 / Bessell 1979 giants G8-K5 "
         "for (B-V)0 >= 0.94); G8-M5 III: Bessell & Brett 1988 Table III "
-        "(2MASS via Carpenter 2001), Bessell 1979 Cousins; M6-M8 III: "
+        "(2MASS via Carpenter 2001), Bessell 1979 Cousins, except V-Ic of "
+        "M0-M5 III, fitted to Hipparcos V-I of even-HIP giants "
+        "(MGIANT_VI_FIT), and V-Rc of M4-M5 III, masked; M6-M8 III: "
         "Bessell & Brett 1988 / Fluks et al. 1994, V-Ks, J-H, H-Ks only. "
         "Gaia colours from V-Ic (Evans et al. 2018) for V-Ic <= 2.7. All "
-        "from memory except the dwarf locus."))
+        "from memory except the dwarf locus and the fitted M-giant V-Ic."))
+    if REF_COLOURS["HIP"] not in out.meta["references"]:
+        out.meta["references"] = list(out.meta["references"]) + [REF_COLOURS["HIP"]]
+    return out
 
 
 def add_supergiant_colours(sg, dwarfs, giants):

@@ -507,7 +507,7 @@ def build_giants(dwarfs):
         "relations (Evans et al. 2018) so that all tables share the DR2 "
         "system of the dwarf table; DR3 relations (Riello et al. 2021) "
         "differ by <~0.02 mag in this range. Gaia colours are given only "
-        "for V-Ic <= 2.7 (masked for M4-M8 III); G-RP follows from BP-RP "
+        "for V-Ic <= 2.7 (masked beyond, M5-M8 III); G-RP follows from BP-RP "
         "through the dwarf table's G-RP(BP-RP) sequence (gravity dependence "
         "neglected; no published V-Ic relation for G-RP was used). Red-clump check: K0 III M_Ks = "
         "M_V - (V-Ks) = -1.65 and K1 III -1.61, versus -1.61 (Hawkins et al. "

@@ -802,14 +802,27 @@ SRC_GAIA_ROW = ("G-V, BP-RP: from this row's V-Ic with Evans et al. 2018 "
 #   M_V = M_Ks + (V-Ks) with M_Ks of late-M giants -7.0 (M6), -7.3 (M7),
 #   -7.6 (M8), read from the semiregular/Mira period-luminosity relations
 #   (Whitelock, Feast & van Leeuwen 2008), from memory.
-#   (B-V)0: 1.60, 1.55, 1.50 (TiO depresses V; from memory, +-0.1).
+#   (B-V)0 of M6, M7: linear fit to Hipparcos B-V (ESA 1997) of 76 class III
+#   M4-M8 stars with EVEN HIP numbers, parallax > 2 mas (fit_mgiant_colours.py;
+#   rms 0.10 mag): 1.378 +- 0.020 and 1.303 +- 0.030.  M8: 1.50 from memory;
+#   the three even-HIP M8 III stars have median 1.47, while the linear trend
+#   would give 1.23, so the trend is not extrapolated to M8.  Reddening not
+#   corrected (a few hundredths of a mag).
 #   No Cousins or Gaia colours: none recalled with confidence (masked).
 # (sptype, B-V, V-K_BB, J-H_BB, H-K_BB, M_Ks)
 EXTRA_III = [
-    ("M6", 1.60, 6.84, 0.96, 0.30, -7.0),
-    ("M7", 1.55, 7.80, 0.96, 0.33, -7.3),
+    ("M6", 1.378, 6.84, 0.96, 0.30, -7.0),
+    ("M7", 1.303, 7.80, 0.96, 0.33, -7.3),
     ("M8", 1.50, 9.00, 0.95, 0.38, -7.6),
 ]
+EXTRA_III_BV_SRC = {
+    "M6": ("B-V: fitted to Hipparcos B-V of 76 even-HIP M4-M8 III stars "
+           "(linear in type; fit_mgiant_colours.py), +-0.02"),
+    "M7": ("B-V: fitted to Hipparcos B-V of 76 even-HIP M4-M8 III stars "
+           "(linear in type; fit_mgiant_colours.py), +-0.03"),
+    "M8": ("B-V: from memory (+-0.1; median of the 3 even-HIP M8 III stars "
+           "in Hipparcos: 1.47)"),
+}
 EXTRA_III_SIG = 1.0
 
 # New class IV rows K4, K5: M_V from memory (no printed table recalled: the
@@ -822,7 +835,7 @@ EXTRA_IV_SIG = 0.8
 # V-Ic of M0-M5 III fitted to Hipparcos V-I (ESA 1997) of 56 class III stars
 # with EVEN HIP numbers (odd numbers held out for tests), measured V-I (source
 # codes A-K), parallax > 5 mas; quadratic in sptnum, 3-sigma clipped, rms 0.16
-# mag; printed by calibrations/_build/fit_mgiant_vi.py and copied here.  The
+# mag; printed by calibrations/_build/fit_mgiant_colours.py and copied here.  The
 # remembered Bessell values (M4 2.80, M5 3.50) were 0.3-0.7 mag too red.
 # (sptype: (V-Ic, formal error))
 MGIANT_VI_FIT = OrderedDict([
@@ -832,7 +845,7 @@ MGIANT_VI_FIT = OrderedDict([
 MGIANT_VRC_MASK = ("M4", "M5")  # remembered V-Rc inconsistent with the fitted V-Ic
 SRC_MGIANT_VI = ("V-Ic: fitted to Hipparcos V-I (ESA 1997) of 56 even-HIP class "
                  "III M0-M5 stars with measured V-I and parallax > 5 mas "
-                 "(quadratic in type, 3-sigma clipped; fit_mgiant_vi.py), "
+                 "(quadratic in type, 3-sigma clipped; fit_mgiant_colours.py), "
                  "{vi:.3f} +- {err:.3f}")
 
 REF_COLOURS = {
@@ -934,7 +947,7 @@ def extend_giants(giants):
             "V-Ks": vks, "J-H": jh2, "H-Ks": hks,
             "source": (f"M_V: M_Ks = {mks} of late-M giants (Whitelock et al. "
                        "2008 period-luminosity relations, from memory) plus "
-                       "this row's V-Ks; B-V: from memory (+-0.1); "
+                       f"this row's V-Ks; {EXTRA_III_BV_SRC[st]}; "
                        + ("V-Ks, J-H, H-Ks: Bessell & Brett 1988 Table III "
                           "(from memory)" if st != "M8" else
                           "V-Ks, J-H, H-Ks: Fluks et al. 1994 Table 7 (from "

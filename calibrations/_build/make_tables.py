@@ -866,14 +866,22 @@ REF_COLOURS = {
 
 
 def _table_rows(t):
-    """Astropy table -> list of row dicts (masked -> NaN), for rebuilding."""
+    """Astropy table -> list of row dicts (masked -> NaN), for rebuilding.
+    Every column except the derived sptnum is carried, so columns that other
+    builders add survive the colour step."""
     rows = []
     for r in t:
-        d = {"sptype": str(r["sptype"]), "M_V": float(r["M_V"]),
-             "sig_M_V": float(r["sig_M_V"]), "source": str(r["source"])}
-        for c in COLOURS:
-            v = r[c]
-            d[c] = np.nan if np.ma.is_masked(v) else float(v)
+        d = {}
+        for name in t.colnames:
+            if name == "sptnum":
+                continue
+            v = r[name]
+            if t[name].dtype.kind in "US":
+                d[name] = str(v)
+            elif t[name].dtype.kind in "iu":
+                d[name] = int(v) if not np.ma.is_masked(v) else v
+            else:
+                d[name] = np.nan if np.ma.is_masked(v) else float(v)
         rows.append(d)
     return rows
 

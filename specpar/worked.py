@@ -26,7 +26,9 @@ The calibration and extinction-law references are listed in each output.
 """
 from __future__ import annotations
 
+import ast
 import html
+import operator
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -37,6 +39,7 @@ from astropy.table import Table
 
 from .bands import BAND_NAMES, BANDS, CALIBRATION_COLOURS, band_index
 from .calibration import CalibrationSet, default_calibrations
+from .extinction import rv_limits
 from .estimate import EstimateOptions, coefficients_at, prepare_observables, to_frame, estimate
 from .flags import Flag, SENTENCES
 from .tableio import atomic_write
@@ -86,6 +89,8 @@ class Step:
         result comes from a fit rather than from the numbers shown).
     source, text : str
         Where looked-up values came from; any explanation.
+    convert : float
+        Factor from the displayed arithmetic to the result's unit (unit conversions, e.g. pc to ly).
     """
 
     key: str
@@ -101,6 +106,8 @@ class Step:
     arith: float = np.nan
     source: str = ""
     text: str = ""
+    convert: float = 1.0
+    template_unit: str = ""
 
 
 @dataclass
@@ -236,28 +243,111 @@ def _markup(s: str, as_html: bool) -> str:
     return run(0)[0]
 
 
-def _substitute(step: Step, decimals: int) -> str:
+def _fmt_error(x, kind: str, decimals: int) -> str:
+    """A 1-sigma error for display: as :func:`_fmt`, but an error that would round to zero
+    gets two significant figures instead (never "± 0.000"); empty if not finite or not positive."""
+    x = float(x)
+    if not (np.isfinite(x) and x > 0):
+        return ""
+    text = _fmt(x, kind, decimals)
+    if float(text) == 0.0:
+        d = 1 - int(np.floor(np.log10(x)))
+        text = f"{round(x, d):.{d}f}"
+    return text
+
+
+def _fmt_operand(value, kind: str, decimals: int, extra: int) -> str:
+    """An operand shown with ``extra`` guard digits, unless it is exact at the base precision."""
+    base = _fmt(value, kind, decimals)
+    if extra == 0 or kind == "num" or not np.isfinite(value):
+        return base
+    if abs(float(base) - value) <= 1e-9 * max(1.0, abs(value)):
+        return base  # e.g. a tabulated 4.800 or a measured 9.412: no guard digits needed
+    return _fmt(value, kind, decimals + extra)
+
+
+def _substitute(step: Step, decimals: int, extra: int = 0) -> str:
     def repl(m):
         k = int(m[1])
         value, kind = step.numbers[k]
-        text = _fmt(value, kind, decimals)
+        text = _fmt_operand(value, kind, decimals, extra)
         first = m.start() == 0 or step.template[:m.start()].rstrip().endswith(("(", "["))
         return f"({text})" if value < 0 and not first else text
 
     return re.sub(r"%(\d+)", repl, step.template)
 
 
+_OPS = {ast.Add: operator.add, ast.Sub: operator.sub, ast.Mult: operator.mul, ast.Div: operator.truediv,
+        ast.Pow: operator.pow}
+
+
+def evaluate_display(text: str) -> float:
+    """Value of a displayed arithmetic expression (plain markup: ``×``, ``/``, ``+``, ``-``,
+    ``^``, round and square brackets); NaN if it is not plain arithmetic."""
+    expr = (text.replace("×", "*").replace("^", "**").replace("[", "(").replace("]", ")")
+            .replace("{", "(").replace("}", ")"))
+
+    def ev(node):
+        if isinstance(node, ast.Expression):
+            return ev(node.body)
+        if isinstance(node, ast.Constant) and isinstance(node.value, (int, float)):
+            return float(node.value)
+        if isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
+            v = ev(node.operand)
+            return -v if isinstance(node.op, ast.USub) else v
+        if isinstance(node, ast.BinOp) and type(node.op) in _OPS:
+            return _OPS[type(node.op)](ev(node.left), ev(node.right))
+        raise ValueError("not plain arithmetic")
+
+    try:
+        return float(ev(ast.parse(expr, mode="eval")))
+    except (SyntaxError, ValueError, ZeroDivisionError, OverflowError):
+        return np.nan
+
+
+def _display(step: Step, decimals: int):
+    """(substituted numbers, result text) such that the numbers shown give the result shown.
+
+    Operands are first shown at the display precision; where their rounding would change the
+    last digit of the result, computed operands get guard digits (one more at a time) until
+    the displayed arithmetic reproduces the displayed result (common practice in hand
+    calculation: carry extra digits in intermediate values, round the result)."""
+    result = _fmt(step.value, step.kind, decimals) if np.isfinite(step.value) else ""
+    if not step.template:
+        return "", result
+    if not (np.isfinite(step.arith) and result):
+        return _substitute(step, decimals), result
+    for extra in range(0, 9):
+        sub = _substitute(step, decimals, extra)
+        got = evaluate_display(_markup(sub, False)) * step.convert
+        if np.isfinite(got) and _fmt(got, step.kind, decimals) == result:
+            return sub, result
+    # not reachable in practice (an exact tie at full precision): show what the numbers give
+    return sub, _fmt(got, step.kind, decimals)
+
+
 def _equation(step: Step, decimals: int) -> str:
     """The step as one line of markup: lhs = formula = numbers = result unit."""
     if not step.lhs:
         return ""
-    parts = [p for p in (step.lhs, step.formula, _substitute(step, decimals) if step.template else "") if p]
-    if np.isfinite(step.value):
-        res = _fmt(step.value, step.kind, decimals)
-        if np.isfinite(step.error) and step.error > 0:
-            res += f" ± {_fmt(step.error, step.kind, decimals)}"
+    sub, res = _display(step, decimals)
+    parts = [p for p in (step.lhs, step.formula, f"{sub} {step.template_unit}".strip()) if p]
+    if res:
+        err = _fmt_error(step.error, step.kind, decimals)
+        if err:
+            res += f" ± {err}"
         parts.append(f"{res} {step.unit}".strip())
     return " = ".join(parts)
+
+
+_MD_SPECIAL = re.compile(r"([\\`*\[\]<>])")
+
+
+def _md_text(text) -> str:
+    """Text for Markdown outside code spans: characters that could open HTML, links or code
+    (``< > [ ] ` * \\``) are backslash-escaped, so input text such as ``<img onerror=...>``
+    shows as text instead of becoming markup."""
+    return _MD_SPECIAL.sub(r"\\\1", str(text))
 
 
 # ----------------------------------------------------------------------------- building
@@ -346,9 +436,10 @@ def _absmag_step(ctx, i, band):
 
 
 def _observations(table, opts: EstimateOptions):
-    """The observables as the solver saw them (values, errors, band combinations)."""
+    """The observables as the solver saw them (values, errors, band combinations) and the
+    input frame under our column names (the column mapping applied exactly as estimate applies it)."""
     prep = prepare_observables(to_frame(table), opts)
-    return prep.obs, prep.obs_names
+    return prep.obs, prep.obs_names, prep.frame
 
 
 class _Columns:
@@ -380,6 +471,7 @@ class _Context:
     law_ref: str
     method: str
     n_draws: int
+    frame: object = None  # input rows under our column names (id, sptype ...)
 
 
 def _used(ctx, i):
@@ -420,7 +512,14 @@ def _extinction_step(ctx, i, band, ebv_symbol="E(B-V)"):
     ebv = float(r["ebv"][i])
     R = float(ctx.coef[i, band_index(band)])
     rsym = "R_{V}" if band == "V" else f"R_{{{band}}}"
-    src = f"{ctx.law} extinction law ({ctx.law_ref}) at R_V = {_fmt(float(r['rv'][i]), 'num', 0)}"
+    rv = float(r["rv"][i])
+    src = f"{ctx.law} extinction law ({ctx.law_ref}) at R_V = {_fmt(rv, 'num', 0)}"
+    lo, hi = rv_limits(ctx.law)
+    if np.isclose(rv, lo) or np.isclose(rv, hi) or not np.isfinite(float(r["e_rv"][i])):
+        if ctx.result.meta.get("R_V_free"):
+            src += (f" (R_V {'≤' if np.isclose(rv, lo) else '≥' if np.isclose(rv, hi) else '='} {rv:g}: the fit "
+                    f"stopped at the law's limit {lo:g}-{hi:g} or could not constrain R_V, so this is a limit, "
+                    "not a measurement)")
     if band == "B":
         src += "; R_B = R_V + 1 by the definition of E(B-V)"
     return Step(f"A_{band}", f"Extinction in {band}", lhs=f"A_{{{band}}}", formula=f"{rsym} × {ebv_symbol}",
@@ -469,8 +568,10 @@ def _distance_steps(ctx, i, dm_step):
         steps.append(Step("dist_pc", "Distance", lhs="d", formula="10^{(m-M)_{0}/5 + 1} pc",
                           template="10^{%0/5 + 1}", numbers=((dm, "mag"),), value=d, kind="pc", unit="pc",
                           arith=10 ** (dm / 5 + 1), source="Pogson 1856: m - M = 5 log10(d / 10 pc)"))
-    steps.append(Step("dist_ly", "Distance in light years", lhs="d", template="%0 pc", numbers=((d, "pc"),),
-                      value=ly, kind="ly", unit="ly", source="unit conversion by astropy.units"))
+    pc_ly = float((1.0 * u.pc).to(u.lyr).value)
+    steps.append(Step("dist_ly", "Distance in light years", lhs="d", template="%0", numbers=((d, "pc"),),
+                      template_unit="pc", value=ly, kind="ly", unit="ly", arith=d * pc_ly, convert=pc_ly,
+                      source=f"unit conversion by astropy.units: 1 pc = {pc_ly:.6f} ly"))
     steps.append(Step("e_dm", "Uncertainty of the distance modulus", lhs="σ_{m-M}", value=e_dm,
                       text=_budget_text(ctx, i)))
     if ctx.method == "mc":
@@ -501,10 +602,17 @@ def _budget_text(ctx, i):
     if any(ctx.obs.L[k, band_index("V")] != 1 or np.count_nonzero(ctx.obs.L[k]) > 1 for k in used):
         parts.append("intrinsic-colour scatter of the calibration")
     if str(r["lum_class"][i]).split("-")[0] in ctx.per_class:  # not for period-luminosity rows
-        parts.append(f"subtype uncertainty (±{float(r['e_sptnum'][i]):.3g} subclass)")
-    if float(r["ebv"][i]) > 0 and float(r["e_rv"][i]) > 0:
-        parts.append(f"R_V uncertainty (±{_fmt(float(r['e_rv'][i]), 'num', 0)})")
+        parts.append(f"subtype uncertainty{_pm_text(float(r['e_sptnum'][i]), ' subclass')}")
+    e_rv = float(r["e_rv"][i])
+    if float(r["ebv"][i]) > 0 and e_rv > 0:
+        parts.append(f"R_V uncertainty{_pm_text(e_rv, '')}" if np.isfinite(e_rv) else
+                     "R_V unconstrained by these bands (a limit, see the extinction step)")
     return "from the fit's covariance, which includes " + ", ".join(parts)
+
+
+def _pm_text(err: float, unit: str) -> str:
+    """" (±x unit)" for a finite positive error shown to 3 significant figures; "" otherwise."""
+    return f" (±{err:.3g}{unit})" if np.isfinite(err) and err > 0 else ""
 
 
 def _period_step(r, i, lum):
@@ -532,8 +640,8 @@ def _type_step(ctx, i, star, cls, lum):
     lum_txt = f"class {lum}" if cls[0] == cls[1] else f"classes {cls[0]} and {cls[1]} (intermediate)"
     return Step("sptnum", "Spectral type", value=sptnum, kind="num", unit="",
                 text=f"'{star.sptype}' read as {_type_name(sptnum)}, {lum_txt}; numeric type "
-                     f"{sptnum:g} (O0 = 0, B0 = 10, ..., M0 = 60), subtype uncertainty "
-                     f"±{float(r['e_sptnum'][i]):.3g} subclass")
+                     f"{sptnum:g} (O0 = 0, B0 = 10, ..., M0 = 60), subtype uncertainty"
+                     f"{_pm_text(float(r['e_sptnum'][i]), ' subclass') or ' not stated'}")
 
 
 def _lookup_steps(ctx, i, star, cls, fit, colour_known):
@@ -581,8 +689,10 @@ def _reddening_steps(ctx, i, star, used, fit, touched, colour_known, ref_band):
 
 def _star(ctx, i) -> WorkedStar:
     r = ctx.result
-    sid = str(r["id"][i]) if "id" in r.colnames else f"row {i + 1}"
-    raw = r["sptype"][i] if "sptype" in r.colnames else ""
+    named = ctx.frame.columns  # id and type under our names, whatever the input calls them
+    raw_id = ctx.frame["id"].iloc[i] if "id" in named else None
+    sid = f"row {i + 1}" if raw_id is None or (isinstance(raw_id, float) and np.isnan(raw_id)) else str(raw_id)
+    raw = ctx.frame["sptype"].iloc[i] if "sptype" in named else ""
     sptype = raw if isinstance(raw, str) else ""  # masked or a column read as numbers: no type
     flags = int(r["flags"][i])
     star = WorkedStar(i, sid, sptype, bool(np.isfinite(float(r["dm"][i]))), [], flags=flags,
@@ -644,7 +754,7 @@ def _context(table, result, options) -> _Context:
     opts = EstimateOptions(**{k: v for k, v in options.items() if k != "calibrations"},
                            calibrations=tuple(options.get("calibrations") or ()))
     cals = CalibrationSet(opts.calibrations) if opts.calibrations else default_calibrations()
-    obs, names = _observations(table, opts)
+    obs, names, frame = _observations(table, opts)
     sptnum = np.asarray(result["sptnum"], dtype=float)
     lum = np.asarray(result["lum_class"], dtype=str)
     lcb = np.array([s.split("-")[0] for s in lum], dtype=object)
@@ -658,7 +768,7 @@ def _context(table, result, options) -> _Context:
     rv = np.nan_to_num(np.asarray(result["rv"], dtype=float), nan=opts.rv)
     coef, _ = coefficients_at(opts.law, rv)
     return _Context(result, cals, obs, names, colours, per_class, coef, opts.law,
-                    meta.get("extinction_law_reference", ""), opts.method, int(opts.n_draws))
+                    meta.get("extinction_law_reference", ""), opts.method, int(opts.n_draws), frame)
 
 
 def worked_solutions(table, *, decimals: int = DEFAULT_DECIMALS, **estimate_options) -> WorkedSolution:
@@ -699,7 +809,9 @@ def worked_solutions(table, *, decimals: int = DEFAULT_DECIMALS, **estimate_opti
     refs.append(f"Extinction law {ctx.law}: {ctx.law_ref}")
     refs.extend(_REFERENCES)
     settings = [
-        f"extinction law {ctx.law} ({ctx.law_ref}), R_V = {meta.get('R_V', '')} ± {meta.get('sigma_R_V', '')}"
+        f"extinction law {ctx.law} ({ctx.law_ref}), R_V = {meta.get('R_V', '')}"
+        + (f" ± {_fmt_error(meta.get('sigma_R_V', np.nan), 'num', 3)}" if _fmt_error(meta.get('sigma_R_V', np.nan), 'num', 3)
+           else " (held fixed, no uncertainty)")
         + (" (fitted per star where possible)" if meta.get("R_V_free") else ""),
         "error propagation: " + ("first order (analytic)" if ctx.method == "analytic"
                                  else f"Monte Carlo, {ctx.n_draws} draws, seed {meta.get('seed')}"),
@@ -765,7 +877,7 @@ def _default_summary(ws, dec) -> SummaryTable:
 
 
 def _md_cell(text) -> str:
-    return str(text).replace("|", "\\|").replace("\n", " ")
+    return _md_text(text).replace("|", "\\|").replace("\n", " ")
 
 
 def _md_table(header, rows) -> list:
@@ -815,33 +927,33 @@ def render_markdown(ws: WorkedSolution, *, title: str = "Worked solutions", deci
     """
     dec = ws.decimals if decimals is None else decimals
     _check_decimals(dec)
-    out = [f"# {title}", ""]
+    out = [f"# {_md_text(title)}", ""]
     for p in preface:
-        out += [p, ""]
-    out += ["Assumptions:", ""] + [f"- {s}" for s in ws.settings] + [""]
+        out += [_md_text(p), ""]
+    out += ["Assumptions:", ""] + [f"- {_md_text(s)}" for s in ws.settings] + [""]
     for t in list(summaries) or [_default_summary(ws, dec)]:
-        out += [f"## {t.caption}", ""] + _md_table(t.header, t.rows) + [""]
+        out += [f"## {_md_text(t.caption)}", ""] + _md_table(t.header, t.rows) + [""]
     for s in ws.stars:
-        out += [f"## {s.id}: {s.sptype}", ""]
+        out += [f"## {_md_text(s.id)}: {_md_text(s.sptype)}", ""]
         for n, st in enumerate(s.steps, 1):
             line = f"{n}. **{st.title}**"
             eq = _equation(st, dec)
             if eq:
                 line += f": `{_markup(eq, False)}`"
             if st.text:
-                text = _markup(st.text, False)
+                text = _md_text(_markup(st.text, False))
                 line += f"; {text}" if eq else f": {text}"
             out.append(line)
             if st.source:
-                out.append(f"   - source: {st.source}")
+                out.append(f"   - source: {_md_text(st.source)}")
             if st.key == "fit" and s.fit:
                 out += [""] + ["   " + ln for ln in _md_table(_fit_header(), [_fit_cells(f, dec) for f in s.fit])]
                 out.append("")
-        out += ["", f"**Answer:** {_answer_line(s, dec)}", ""]
+        out += ["", f"**Answer:** {_md_text(_answer_line(s, dec))}", ""]
         flags = _flag_lines(s)
         if flags:
-            out += ["Flags:", ""] + [f"- {f}" for f in flags] + [""]
-    out += ["## References", ""] + [f"- {r}" for r in ws.references] + [""]
+            out += ["Flags:", ""] + [f"- {_md_text(f)}" for f in flags] + [""]
+    out += ["## References", ""] + [f"- {_md_text(r)}" for r in ws.references] + [""]
     return "\n".join(out)
 
 

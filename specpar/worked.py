@@ -123,6 +123,7 @@ class FitRow:
     dm_band: float
     residual: float
     is_magnitude: bool
+    dm_fit: float = np.nan
 
 
 @dataclass
@@ -201,6 +202,8 @@ def _fmt(x, kind: str, decimals: int) -> str:
     if kind in ("pc", "ly", "mas"):
         sig = max(decimals + 1, 2)
         v = _round_sig(x, sig)
+        if abs(v) >= 10 ** sig:  # no trailing zeros of unknown meaning: all integer digits
+            return f"{round(x) + 0:d}"
         d = max(0, sig - 1 - int(np.floor(np.log10(abs(v))))) if v else decimals
         return f"{v:.{d}f}"
     if kind == "num":
@@ -215,7 +218,8 @@ def _round_value(x, kind: str, decimals: int) -> float:
     if not np.isfinite(x):
         return np.nan
     if kind in ("pc", "ly", "mas"):
-        return _round_sig(x, max(decimals + 1, 2))
+        sig = max(decimals + 1, 2)
+        return float(round(x)) if abs(_round_sig(x, sig)) >= 10 ** sig else _round_sig(x, sig)
     return round(x, decimals) + 0.0
 
 
@@ -472,6 +476,7 @@ class _Context:
     method: str
     n_draws: int
     frame: object = None  # input rows under our column names (id, sptype ...)
+    decimals: int = DEFAULT_DECIMALS
 
 
 def _used(ctx, i):
@@ -503,7 +508,7 @@ def _fit_rows(ctx, i, used):
         y = float(ctx.obs.y[i, k])
         dmb = y - absmag - ext if is_mag else np.nan
         rows.append(FitRow(ctx.obs_names[k], y, float(ctx.obs.sigma[i, k]), absmag, coef, ext, dmb,
-                           y - absmag - ext - dm * Lk.sum(), bool(is_mag)))
+                           y - absmag - ext - dm * Lk.sum(), bool(is_mag), dm))
     return rows
 
 
@@ -560,7 +565,7 @@ def _distance_steps(ctx, i, dm_step):
     dm, e_dm = float(r["dm"][i]), float(r["e_dm"][i])
     d, lo, hi = (float(r[c][i]) for c in ("dist_pc", "dist_lo_pc", "dist_hi_pc"))
     ly = float((d * u.pc).to(u.lyr).value)
-    steps = [dm_step]
+    steps = list(dm_step) if isinstance(dm_step, list) else [dm_step]
     if ctx.method == "mc":
         steps.append(Step("dist_pc", "Distance", lhs="d", value=d, kind="pc", unit="pc",
                           text=f"median of the distances of {ctx.n_draws} Monte Carlo draws"))
@@ -684,7 +689,53 @@ def _reddening_steps(ctx, i, star, used, fit, touched, colour_known, ref_band):
     ext = [_extinction_step(ctx, i, b) for b in dict.fromkeys(["V"] + touched)]
     for st in ext[1:]:  # the law is named once
         st.source = "R_B = R_V + 1 by the definition of E(B-V)" if st.key == "A_B" else ""
-    return [_fit_step(star), ebv_step] + ext + _hand_check(ctx, i, used), dm_step
+    hand = _hand_mean_step(ctx, i, cls_of(ctx, i), fit, ctx.decimals)
+    return [_fit_step(star), ebv_step] + ext + _hand_check(ctx, i, used), [dm_step] + ([hand] if hand else [])
+
+
+def cls_of(ctx, i):
+    """Luminosity class whose calibration gives the colour scatter of row i (None if none)."""
+    lc = str(ctx.result["lum_class"][i]).split("-")[0]
+    return lc if lc in ctx.per_class else None
+
+
+def _hand_mean_step(ctx, i, lc, fit, dec):
+    """Hand route beside a multi-band fit: the weighted mean of the band moduli of the fit table.
+
+    Weights w = 1 / (σ^2 + n s_c^2): σ the photometric error, s_c the calibration's colour scatter,
+    n the number of calibration colours linking the band to V (its M = M_V + n colours). The
+    numbers are the table's displayed ones, so the arithmetic is exactly what a student gets.
+    """
+    mags = [f for f in fit if f.is_magnitude and np.isfinite(f.dm_band)]
+    if len(mags) < 2:
+        return None
+    sc = ctx.cals.by_class[lc].colour_scatter if lc else 0.0
+    w = [_round_sig(1.0 / (f.sigma ** 2 + len(_chain(f.name)) * sc ** 2), 3) for f in mags]
+    dmb = [float(_band_modulus(f, dec)) for f in mags]
+    numbers, top, bottom = [], [], []
+    for k, (wk, dk) in enumerate(zip(w, dmb)):
+        numbers += [(wk, "num"), (dk, "mag")]
+        top.append(f"%{2 * k} × %{2 * k + 1}")
+        bottom.append(f"%{2 * k}")
+    step = Step("dm_hand", "Hand route: weighted mean of the band moduli (not the fitted answer)",
+                lhs="(m-M)_{0}", formula="Σ w (m - M - A) / Σ w",
+                template=f"({' + '.join(top)}) / ({' + '.join(bottom)})", numbers=tuple(numbers))
+    hand = evaluate_display(_markup(_substitute(step, dec), False))
+    fitted = float(ctx.result["dm"][i])
+    diff = fitted - hand
+    step.value = step.arith = hand
+    step.text = (f"weights w = 1/(σ^{{2}} + n s_{{c}}^{{2}}) with σ the photometric error, s_{{c}} = {sc:g} mag "
+                 "the calibration's colour scatter and n the number of colours linking the band to V; m - M - A "
+                 f"from the table (A at the fitted E(B-V)). The fit gives {_fmt(fitted, 'mag', dec)} mag, "
+                 f"{_fmt(diff, 'mag', dec)} mag from this mean ({100 * (10 ** (diff / 5) - 1):+.1f} % in distance): "
+                 "it solves E(B-V) and (m-M)_{0} together and weighs the bands with the full covariance, in which "
+                 "the scatter of M_V, of the colours and of the subtype moves the bands together")
+    return step
+
+
+def _band_modulus(f: FitRow, dec) -> str:
+    """m - M - A of a fit-table row from the displayed m, M and A (exact at ``dec`` decimals)."""
+    return _fmt(round(f.value, dec) - round(f.absmag, dec) - round(f.ext, dec), "mag", dec)
 
 
 def _star(ctx, i) -> WorkedStar:
@@ -799,6 +850,7 @@ def worked_solutions(table, *, decimals: int = DEFAULT_DECIMALS, **estimate_opti
     result = estimate(table, explain=True, **estimate_options)
     cols = _Columns(result)
     ctx = _context(table, cols, estimate_options)
+    ctx.decimals = int(decimals)
     stars = [_star(ctx, i) for i in range(len(cols))]  # text per star; the numbers are all vectorised
     meta = cols.meta
     refs = []
@@ -892,9 +944,15 @@ def _fit_header():
 
 
 def _fit_cells(f: FitRow, dec):
+    """One fit-table row; for magnitudes, m - M - A and the residual (m - M - A) - (m-M)_0 are the
+    differences of the displayed numbers, so they reproduce by hand."""
+    if f.is_magnitude:
+        dmb = _band_modulus(f, dec)
+        res = _fmt(float(dmb) - round(f.dm_fit, dec), "mag", dec)
+    else:
+        dmb, res = "(colour)", _fmt(f.residual, "mag", dec)
     return [f.name, _fmt(f.value, "mag", dec), _fmt(f.sigma, "mag", dec), _fmt(f.absmag, "mag", dec),
-            _fmt(f.coef, "coef", dec), _fmt(f.ext, "mag", dec),
-            _fmt(f.dm_band, "mag", dec) if f.is_magnitude else "(colour)", _fmt(f.residual, "mag", dec)]
+            _fmt(f.coef, "coef", dec), _fmt(f.ext, "mag", dec), dmb, res]
 
 
 def _answer_line(s: WorkedStar, dec) -> str:

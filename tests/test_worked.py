@@ -300,3 +300,83 @@ def test_html_page_renders_in_headless_chromium(tmp_path):
     dark = (grey < 0.5).mean()
     assert 0.005 < dark < 0.5  # text on a light page: neither blank nor a single colour
     assert len(np.unique(np.round(grey, 2))) > 20  # anti-aliased text, not a flat fill
+
+
+# ----------------------------------------------------------------------------- displayed arithmetic
+
+#: 1 pc in light years from the definitions: 1 pc = 648000/pi au (IAU 2015 B2), 1 au =
+#: 149597870700 m (IAU 2012 B2), 1 ly = c x Julian year = 299792458 m/s x 365.25 x 86400 s.
+PC_IN_LY = (648000 / math.pi) * 149597870700 / (299792458 * 365.25 * 86400)
+_ARITH = re.compile(r"^[-+0-9.()\[\] ×/^]+$")
+_RESULT = re.compile(r"^(-?\d+(?:\.(\d+))?)(?: ± \S+)?(?: (\S+))?$")
+
+
+def _eval_displayed(expr: str) -> float:
+    """Independent evaluator of a displayed left side: the text turned into Python arithmetic."""
+    py = expr.replace("×", "*").replace("^", "**").replace("[", "(").replace("]", ")")
+    assert re.fullmatch(r"[-+0-9.()* /]+", py), expr
+    return float(eval(py, {"__builtins__": {}}, {}))  # digits and operators only (checked above)
+
+
+def displayed_equations(text: str):
+    """(operands text, result text) of every displayed equation ``... = operands = result unit``
+    in a Markdown key, including the unit conversion ``X pc = Y ly``."""
+    out = []
+    for code in re.findall(r"`([^`]*)`", text):
+        parts = code.split(" = ")
+        for left, right in zip(parts[:-1], parts[1:]):
+            unit_conv = re.fullmatch(r"(-?[\d.]+) pc", left)
+            if (unit_conv or (_ARITH.match(left) and re.search(r"\d\s*[-+×/^]|\)\s*/", left))) \
+                    and _RESULT.match(right):
+                out.append((left, right))
+    return out
+
+
+def check_equations(text: str):
+    """Number of displayed equations and the list of those whose displayed operands do not give the
+    displayed result at its displayed precision."""
+    eqs = displayed_equations(text)
+    bad = []
+    for left, right in eqs:
+        m = _RESULT.match(right)
+        shown, decimals, unit = m[1], len(m[2] or ""), m[3]
+        conv = re.fullmatch(r"(-?[\d.]+) pc", left)
+        value = float(conv[1]) * PC_IN_LY if conv and unit == "ly" else _eval_displayed(left)
+        if float(f"{value:.{decimals}f}") != float(shown):
+            bad.append(f"{left} = {right} (operands give {value:.{decimals + 2}f})")
+    return len(eqs), bad
+
+
+def test_displayed_equations_reproduce_on_the_sample_survey_and_invented_stars():
+    """Each displayed equation's operands, evaluated as shown, give the displayed result at the
+    displayed precision (common practice: an answer key is checkable by hand)."""
+    for table, opts in ((read_table(SAMPLE), {}), (_table(), {}), (_table(), dict(law="CCM89", rv=3.4))):
+        md = render_markdown(worked_solutions(table, **opts))
+        n, bad = check_equations(md)
+        assert n > 90 and bad == [], bad[:5]
+    # the parser sees every arithmetic step of the classic B, V star (so a wrong display would be caught)
+    eqs = [left for left, _ in displayed_equations(render_markdown(worked_solutions(_table().iloc[:1])))]
+    assert eqs[:6] == ["4.800 + 0.650", "(10.100 - 9.400) - 0.650", "3.100 × 0.050", "9.400 - 4.800 - 0.155",
+                       "10^(4.445/5 + 1)", "77.45 pc"] and len(eqs) == 9
+
+
+def test_equation_parser_catches_a_last_digit_error():
+    n, bad = check_equations("`A_V = R_V × E(B-V) = 3.100 × 0.492 = 1.524 mag` and `x = 1000 / 100.9 = 9.913 mas`")
+    assert n == 2 and len(bad) == 2
+    n, bad = check_equations("`d = 1040.2 pc = 3393 ly` `d = 10^(10.086/5 + 1) = 1040 pc`")
+    assert n == 2 and bad == []
+
+
+def test_multiband_fit_shows_the_weighted_mean_hand_route():
+    ws = worked_solutions(_table())
+    star = ws.stars[4]  # A0V with six bands: a fit
+    hand = star.step("dm_hand")
+    md = render_markdown(ws)
+    line = next(ln for ln in md.splitlines() if "Hand route" in ln and "SPX" not in ln)
+    # the hand route is the mean of the table's m - M - A weighted by 1/(σ^2 + n s_c^2)
+    weights = [float(x) for x in re.findall(r"([\d.]+) × ", line.split(" / (")[0])]
+    moduli = [float(x) for x in re.findall(r"× (-?[\d.]+)", line)]
+    assert len(weights) == len(moduli) == 6
+    assert hand.value == pytest.approx(np.dot(weights, moduli) / sum(weights), abs=1e-9)
+    assert "The fit gives" in hand.text and "% in distance" in hand.text
+    assert hand.value != star.step("dm").value

@@ -47,7 +47,7 @@ from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check_
 from .sptype import DEFAULT_SUBTYPE_SIGMA, TEMPERATURE_CLASSES
 from .estimate import coefficients_at
 from .worked import (_CSS, DEFAULT_DECIMALS, SummaryTable, WorkedSolution, _chain, _fmt, _html_table, _md_table,
-                     _md_text, _round_value, answer_key, render_html, render_markdown, worked_solutions, write_text)
+                     _md_text, _fmt_error, _round_sig, _round_value, answer_key, render_html, render_markdown, worked_solutions, write_text)
 
 __all__ = ["LEVELS", "ProblemSet", "make_problem_set", "write_problem_set", "problem_files", "register_cli",
            "SEED_BITS", "SMALL_SEED_BITS", "SmallSeedWarning"]
@@ -301,7 +301,7 @@ def _tables(s, draw, tag):
         sheet[b] = draw["mags"][:, band_index(b)]
         sheet[b].unit = "mag"
         if s["level"] == "full":
-            sheet[f"e_{b}"] = np.full(n, round(s["error_mag"], 3))
+            sheet[f"e_{b}"] = np.full(n, _round_sig(s["error_mag"], 3))
             sheet[f"e_{b}"].unit = "mag"
     truth = Table()
     truth["id"] = ids
@@ -465,7 +465,7 @@ def _sheet_notes(ps):
     notes = [f"The stars are invented. Their apparent V magnitudes lie between {s['v_range'][0]:g} and "
              f"{s['v_range'][1]:g}."]
     errs = ([f"photometric errors: the e_ columns (1 sigma)"] if ps.level == "full" else
-            [f"photometric errors: {s['error_mag']:.3f} mag (1 sigma) on every V"])
+            [f"photometric errors: {_fmt_error(s['error_mag'], 'mag', 3)} mag (1 sigma) on every V"])
     errs.append("the calibration's intrinsic scatter σ(M_V) of each row")
     if ps.level == "full":
         errs.append("the scatter of the intrinsic colours, "
@@ -480,12 +480,20 @@ def _sheet_notes(ps):
     return notes
 
 
+def _sheet_rows(ps):
+    """Sheet cells: magnitudes to 0.001 mag, errors as :func:`specpar.worked._fmt_error` shows them."""
+    def cell(row, c):
+        if c in ("id", "sptype"):
+            return str(row[c])
+        return _fmt_error(row[c], "mag", 3) if c.startswith("e_") else f"{row[c]:.3f}"
+    return [[cell(row, c) for c in ps.sheet.colnames] for row in ps.sheet]
+
+
 def _sheet_markdown(ps) -> str:
     cols = ps.sheet.colnames
     lines = [f"# Problem sheet {ps.label}", ""] + [_md_text(t) for t in _tasks(ps)] + [""]
     lines += sum(([_md_text(n), ""] for n in _sheet_notes(ps)), [])
-    rows = [[f"{row[c]:.3f}" if c not in ("id", "sptype") else str(row[c]) for c in cols] for row in ps.sheet]
-    lines += _md_table(cols, rows) + [""]
+    lines += _md_table(cols, _sheet_rows(ps)) + [""]
     for caption, header, rows in _sheet_tables(ps):
         lines += [f"## {_md_text(caption)}", ""] + _md_table(header, rows) + [""]
     return "\n".join(lines)
@@ -496,7 +504,7 @@ def _sheet_html(ps) -> str:
     e = html.escape
     title = f"Problem sheet {ps.label}"
     cols = ps.sheet.colnames
-    rows = [[f"{row[c]:.3f}" if c not in ("id", "sptype") else str(row[c]) for c in cols] for row in ps.sheet]
+    rows = _sheet_rows(ps)
     tasks = _tasks(ps)
     out = ["<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
            '<meta name="viewport" content="width=device-width, initial-scale=1">',

@@ -332,10 +332,26 @@ def displayed_equations(text: str):
     return out
 
 
+def fit_table_sums(text: str):
+    """(operands, result) of the fit tables' arithmetic columns: m - M - A = value - M - A and
+    residual = (m - M - A) - (m-M)_0, with (m-M)_0 the star's displayed distance modulus."""
+    out = []
+    for section in text.split("\n## ")[1:]:
+        dm = re.search(r"`\(m-M\)_0 = (-?[\d.]+) ± ", section)
+        for ln in section.splitlines():
+            cells = [c.strip() for c in ln.strip().strip("|").split("|")]
+            if len(cells) != 8 or not ln.strip().startswith("| ") or cells[6] in ("m - M - A", "(colour)", "---"):
+                continue
+            value, M, A, dmb, res = cells[1], cells[3], cells[5], cells[6], cells[7]
+            out.append((f"{value} - ({M}) - ({A})", dmb))
+            out.append((f"{dmb} - ({dm[1]})", res))
+    return out
+
+
 def check_equations(text: str):
     """Number of displayed equations and the list of those whose displayed operands do not give the
-    displayed result at its displayed precision."""
-    eqs = displayed_equations(text)
+    displayed result at its displayed precision (fit-table columns included)."""
+    eqs = displayed_equations(text) + fit_table_sums(text)
     bad = []
     for left, right in eqs:
         m = _RESULT.match(right)
@@ -380,3 +396,77 @@ def test_multiband_fit_shows_the_weighted_mean_hand_route():
     assert hand.value == pytest.approx(np.dot(weights, moduli) / sum(weights), abs=1e-9)
     assert "The fit gives" in hand.text and "% in distance" in hand.text
     assert hand.value != star.step("dm").value
+
+
+@pytest.mark.filterwarnings("ignore::specpar.problems.SmallSeedWarning")
+@pytest.mark.parametrize("level", ["full", "simple"])
+def test_displayed_equations_reproduce_in_problem_set_keys(level):
+    """Full keys (several bands, reddening, fits) and simple keys from several seeds."""
+    from specpar.problems import make_problem_set
+    total = 0
+    for seed in (1, 2, 3, 20240917, 2 ** 100 + 7):
+        ps = make_problem_set(seed=seed, n_stars=10, level=level)
+        n, bad = check_equations(render_markdown(ps.worked))
+        assert bad == [], (seed, bad[:5])
+        total += n
+    assert total >= (1400 if level == "full" else 250)  # 300 and 60 per 10-star key
+
+
+# ----------------------------------------------------------------------------- column mapping, input text
+
+def test_worked_honours_the_column_mapping(tmp_path):
+    """With --col the key names each star by its mapped id and reads its mapped type (no 'row 171',
+    no "'' read as")."""
+    df = read_table(SAMPLE).to_pandas().rename(columns={"id": "Name", "sptype": "SpT", "V": "Vmag", "e_V": "e_Vmag"})
+    cols = {"id": "Name", "sptype": "SpT", "V": "Vmag", "e_V": "e_Vmag"}
+    ws = worked_solutions(df, columns=cols)
+    plain = worked_solutions(read_table(SAMPLE))
+    assert [s.id for s in ws.stars] == [s.id for s in plain.stars]
+    assert [s.sptype for s in ws.stars] == [s.sptype for s in plain.stars]
+    assert render_markdown(ws) == render_markdown(plain)
+    src = tmp_path / "renamed.csv"
+    df.to_csv(src, index=False)
+    out = tmp_path / "key.md"
+    args = ["worked", str(src), "-o", str(out)] + sum((["--col", f"{k}={v}"] for k, v in cols.items()), [])
+    assert main(args) == 0
+    md = out.read_text()
+    assert "## row " not in md and "'' read as" not in md
+    assert f"## {df['Name'][0]}: {df['SpT'][0]}" in md
+
+
+def test_markdown_key_neutralises_markup_from_input_text():
+    """A CommonMark renderer (markdown-it-py, the reference Python port) makes no element out of
+    input ids or types: they show as text."""
+    MarkdownIt = pytest.importorskip("markdown_it").MarkdownIt
+    t = _table().iloc[:2].copy()
+    t.loc[0, "id"] = "<img src=x onerror=alert(1)>"
+    t.loc[1, "id"] = "[click](javascript:alert(2))"
+    t.loc[1, "sptype"] = "K1 III <script>alert(3)</script>"
+    ws = worked_solutions(t)
+    md = render_markdown(ws)
+    page = MarkdownIt("commonmark").render(md)
+    assert "<img" not in page and "<script" not in page and 'href="javascript' not in page
+    assert "&lt;img src=x onerror=alert(1)&gt;" in page  # shown as text
+    assert "[click](javascript:alert(2))" in page
+    assert "<img" not in render_html(ws) and "<script>" not in render_html(ws)
+
+
+def test_tiny_errors_keep_significant_digits():
+    from specpar.worked import Step, _equation, _fmt_error
+    assert _fmt_error(0.00031, "mag", 3) == "0.00031" and _fmt_error(0.0123, "mag", 3) == "0.012"
+    assert _fmt_error(np.nan, "mag", 3) == "" and _fmt_error(0.0, "mag", 3) == ""
+    st = Step("x", "x", lhs="x", value=1.0, error=0.0002)
+    assert _equation(st, 3) == "x = 1.000 ± 0.00020 mag"
+    assert _equation(Step("x", "x", lhs="x", value=1.0, error=np.nan), 3) == "x = 1.000 mag"
+
+
+def test_no_nan_or_zero_errors_in_keys_of_the_samples():
+    for name, opts in (("survey.csv", {}), ("survey.csv", dict(fit_rv=True, sigma_rv=0.0)),
+                       ("pulsators.csv", {})):
+        path = SAMPLE.parent / name
+        if not path.exists():
+            continue
+        ws = worked_solutions(read_table(path), **opts)
+        for text in (render_markdown(ws), render_html(ws)):
+            assert not re.search(r"±\s*(nan|inf|n/a|0\.0+(?![0-9]))", text), name
+            assert "± nan" not in text and "±nan" not in text

@@ -4,11 +4,16 @@ a student sheet and the matching answer key.
 Each star is drawn from the calibration tables themselves: a tabulated MK
 type and luminosity class, a true subtype scattered about it, a true absolute
 magnitude and true intrinsic colours scattered by the calibration's own
-intrinsic scatter (``sig_M_V`` and ``colour_scatter``), a distance (uniform in
-log d) and a colour excess (uniform). Its apparent magnitudes are
+intrinsic scatter (``sig_M_V`` and ``colour_scatter``), a colour excess
+(uniform) and a distance (uniform in log d over the part of the distance range
+that keeps the star's V inside the stated ``v_range``; a star that cannot be
+placed there is drawn again). Its apparent magnitudes are
 ``m = M + (m-M)_0 + R_band E(B-V)`` plus Gaussian photometric noise, rounded
 to 0.001 mag. The key holds the true values, the values a correct solution
 recovers (those of :func:`specpar.estimate` on the sheet) and the worked steps.
+The sheet carries what a solution needs: the calibration rows of its types,
+the coefficients A/E(B-V) of its bands and every error the key's uncertainty
+combines.
 
 Two levels:
 
@@ -19,13 +24,19 @@ Two levels:
 ``full``
     Several bands with error bars, reddening, classes V and III by default.
 
-The same seed gives the same files, byte for byte. The seed is written into
-the key but not into the sheet; choose one students cannot guess.
+The same seed gives the same files, byte for byte. By default a fresh 128-bit
+seed is drawn (:mod:`secrets`) and written into the key only. A hand-picked
+seed of fewer than 64 bits gets a :class:`SmallSeedWarning`: a student with
+specpar could try seeds in order until the sheet matches. The generator seed
+and the set's label come from PBKDF2-HMAC-SHA256 of the seed (RFC 8018), the
+label from its own bytes, so nothing printed on the sheet is a draw of the
+generator, and every seed tried costs 100 000 hash rounds.
 
 References
 ----------
 Pogson 1856, MNRAS 17, 12 (distance modulus); the calibration and
 extinction-law references are those of the tables and law used, listed in the key.
+Moriarty, K., Kaliski, B. & Rusch, A. 2017, RFC 8018, PKCS #5 v2.1 (PBKDF2).
 """
 from __future__ import annotations
 

@@ -13,6 +13,14 @@ full precision and rounded only when written out. Each step also records
 ``arith``, what its displayed arithmetic gives at full precision, so a test
 can check that the written-out sums reproduce the solver's results.
 
+Every displayed equation reproduces from its displayed operands at the
+displayed precision: where rounding the operands would change the last digit
+of the result, the computed operands are shown with guard digits (one more at
+a time, as many as needed; tabulated and measured values that are exact at the
+display precision stay as they are). A multi-band fit, which cannot be done by
+hand, is followed by a hand route (the weighted mean of the band moduli of the
+fit table, with its weights) and the difference between the two.
+
 Output formats: Markdown, a self-contained HTML page (maths as HTML
 sub/superscripts, inline CSS, print styles, no scripts or external files) and
 a compact answer-key table (CSV).

@@ -290,8 +290,8 @@ def _draw(s, gen_seed):
         raise ValueError(f"the types {', '.join(s['types'])} of class(es) {', '.join(s['classes'])} rarely or "
                          f"never reach V = {s['v_range'][0]:g}-{s['v_range'][1]:g} mag at "
                          f"{s['dist_range_pc'][0]:g}-{s['dist_range_pc'][1]:g} pc with E(B-V) "
-                         f"{s['ebv_range'][0]:g}-{s['ebv_range'][1]:g}; widen v_range or dist_range_pc, or "
-                         "choose other types")
+                         f"{s['ebv_range'][0]:g}-{s['ebv_range'][1]:g}; widen v_range (--v-range) or dist_range_pc "
+                         "(--dist-range), or choose other types (--types)")
     logd = st["lo"] + c["u_logd"] * (st["hi"] - st["lo"])
     dm = 5.0 * logd - 5.0
     ebv, R = c["ebv"], st["R"]

@@ -616,10 +616,12 @@ def _budget_text(ctx, i):
         parts.append("intrinsic-colour scatter of the calibration")
     if str(r["lum_class"][i]).split("-")[0] in ctx.per_class:  # not for period-luminosity rows
         parts.append(f"subtype uncertainty{_pm_text(float(r['e_sptnum'][i]), ' subclass')}")
-    e_rv = float(r["e_rv"][i])
+    e_rv, rv = float(r["e_rv"][i]), float(r["rv"][i])
+    at_limit = ctx.result.meta.get("R_V_free") and any(np.isclose(rv, x) for x in rv_limits(ctx.law))
     if float(r["ebv"][i]) > 0 and e_rv > 0:
-        parts.append(f"R_V uncertainty{_pm_text(e_rv, '')}" if np.isfinite(e_rv) else
-                     "R_V unconstrained by these bands (a limit, see the extinction step)")
+        parts.append(f"R_V uncertainty{_pm_text(e_rv, '')}" if np.isfinite(e_rv) and not at_limit else
+                     "R_V at the limit of the law or unconstrained by these bands (a limit, see the "
+                     "extinction step)")
     return "from the fit's covariance, which includes " + ", ".join(parts)
 
 

@@ -470,3 +470,20 @@ def test_no_nan_or_zero_errors_in_keys_of_the_samples():
         for text in (render_markdown(ws), render_html(ws)):
             assert not re.search(r"±\s*(nan|inf|n/a|0\.0+(?![0-9]))", text), name
             assert "± nan" not in text and "±nan" not in text
+
+
+def test_fitted_rv_at_the_law_limit_is_written_as_a_limit():
+    """R_V fitted per star stops at the law's range (F99 in dust_extinction: 2-6); such a value is a
+    bound, so the key says so instead of quoting R_V ± error as a measurement."""
+    rows = [dict(id=f"SPX-09{k}", sptype="B2V", B=11.0, V=10.0, Ic=8.5, J=7.4, H=6.9, Ks=ks)
+            for k, ks in enumerate((5.0, 7.5))]  # invented: far too faint in the infrared, then plausible
+    df = pd.DataFrame(rows)
+    for b in ("B", "V", "Ic", "J", "H", "Ks"):
+        df[f"e_{b}"] = 0.02
+    ws = worked_solutions(df, fit_rv=True)
+    rv = np.asarray(ws.result["rv"], float)
+    assert rv[0] == pytest.approx(6.0) and 2.0 < rv[1] < 6.0
+    limit, free = ws.stars
+    assert "this is a limit, not a measurement" in limit.step("A_V").source
+    assert "R_V at the limit" in limit.step("e_dm").text and "R_V uncertainty (±" not in limit.step("e_dm").text
+    assert "limit" not in free.step("A_V").source and "R_V uncertainty (±" in free.step("e_dm").text

@@ -878,6 +878,8 @@ def worked_solutions(table, *, decimals: int = DEFAULT_DECIMALS, **estimate_opti
         "error propagation: " + ("first order (analytic)" if ctx.method == "analytic"
                                  else f"Monte Carlo, {ctx.n_draws} draws, seed {meta.get('seed')}"),
         f"missing photometric errors taken as {meta.get('default_error_mag', '')} mag",
+        "every equation's result follows from the numbers it shows; where rounding them would change the "
+        "last digit, the computed numbers carry extra (guard) digits",
     ]
     settings += [f"calibration {lc}: {ctx.cals.by_class[lc].path or ctx.cals.by_class[lc].name}"
                  for lc in ctx.cals.by_class if lc in used_classes]

@@ -334,6 +334,8 @@ def _display(step: Step, decimals: int):
         got = evaluate_display(_markup(sub, False)) * step.convert
         if np.isfinite(got) and _fmt(got, step.kind, decimals) == result:
             return sub, result
+    if not np.isfinite(got):  # not plain arithmetic (no template of this module): show it as it is
+        return _substitute(step, decimals), result
     # not reachable in practice (an exact tie at full precision): show what the numbers give
     return sub, _fmt(got, step.kind, decimals)
 

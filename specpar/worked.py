@@ -13,6 +13,14 @@ full precision and rounded only when written out. Each step also records
 ``arith``, what its displayed arithmetic gives at full precision, so a test
 can check that the written-out sums reproduce the solver's results.
 
+Every displayed equation reproduces from its displayed operands at the
+displayed precision: where rounding the operands would change the last digit
+of the result, the computed operands are shown with guard digits (one more at
+a time, as many as needed; tabulated and measured values that are exact at the
+display precision stay as they are). A multi-band fit, which cannot be done by
+hand, is followed by a hand route (the weighted mean of the band moduli of the
+fit table, with its weights) and the difference between the two.
+
 Output formats: Markdown, a self-contained HTML page (maths as HTML
 sub/superscripts, inline CSS, print styles, no scripts or external files) and
 a compact answer-key table (CSV).
@@ -26,7 +34,9 @@ The calibration and extinction-law references are listed in each output.
 """
 from __future__ import annotations
 
+import ast
 import html
+import operator
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -37,6 +47,7 @@ from astropy.table import Table
 
 from .bands import BAND_NAMES, BANDS, CALIBRATION_COLOURS, band_index
 from .calibration import CalibrationSet, default_calibrations
+from .extinction import rv_limits
 from .estimate import EstimateOptions, coefficients_at, prepare_observables, to_frame, estimate
 from .flags import Flag, SENTENCES
 from .tableio import atomic_write
@@ -86,6 +97,8 @@ class Step:
         result comes from a fit rather than from the numbers shown).
     source, text : str
         Where looked-up values came from; any explanation.
+    convert : float
+        Factor from the displayed arithmetic to the result's unit (unit conversions, e.g. pc to ly).
     """
 
     key: str
@@ -101,6 +114,8 @@ class Step:
     arith: float = np.nan
     source: str = ""
     text: str = ""
+    convert: float = 1.0
+    template_unit: str = ""
 
 
 @dataclass
@@ -116,6 +131,7 @@ class FitRow:
     dm_band: float
     residual: float
     is_magnitude: bool
+    dm_fit: float = np.nan
 
 
 @dataclass
@@ -194,6 +210,8 @@ def _fmt(x, kind: str, decimals: int) -> str:
     if kind in ("pc", "ly", "mas"):
         sig = max(decimals + 1, 2)
         v = _round_sig(x, sig)
+        if abs(v) >= 10 ** sig:  # no trailing zeros of unknown meaning: all integer digits
+            return f"{round(x) + 0:d}"
         d = max(0, sig - 1 - int(np.floor(np.log10(abs(v))))) if v else decimals
         return f"{v:.{d}f}"
     if kind == "num":
@@ -208,7 +226,8 @@ def _round_value(x, kind: str, decimals: int) -> float:
     if not np.isfinite(x):
         return np.nan
     if kind in ("pc", "ly", "mas"):
-        return _round_sig(x, max(decimals + 1, 2))
+        sig = max(decimals + 1, 2)
+        return float(round(x)) if abs(_round_sig(x, sig)) >= 10 ** sig else _round_sig(x, sig)
     return round(x, decimals) + 0.0
 
 
@@ -236,28 +255,113 @@ def _markup(s: str, as_html: bool) -> str:
     return run(0)[0]
 
 
-def _substitute(step: Step, decimals: int) -> str:
+def _fmt_error(x, kind: str, decimals: int) -> str:
+    """A 1-sigma error for display: as :func:`_fmt`, but an error that would round to zero
+    gets two significant figures instead (never "± 0.000"); empty if not finite or not positive."""
+    x = float(x)
+    if not (np.isfinite(x) and x > 0):
+        return ""
+    text = _fmt(x, kind, decimals)
+    if float(text) == 0.0:
+        d = 1 - int(np.floor(np.log10(x)))
+        text = f"{round(x, d):.{d}f}"
+    return text
+
+
+def _fmt_operand(value, kind: str, decimals: int, extra: int) -> str:
+    """An operand shown with ``extra`` guard digits, unless it is exact at the base precision."""
+    base = _fmt(value, kind, decimals)
+    if extra == 0 or kind == "num" or not np.isfinite(value):
+        return base
+    if abs(float(base) - value) <= 1e-9 * max(1.0, abs(value)):
+        return base  # e.g. a tabulated 4.800 or a measured 9.412: no guard digits needed
+    return _fmt(value, kind, decimals + extra)
+
+
+def _substitute(step: Step, decimals: int, extra: int = 0) -> str:
     def repl(m):
         k = int(m[1])
         value, kind = step.numbers[k]
-        text = _fmt(value, kind, decimals)
+        text = _fmt_operand(value, kind, decimals, extra)
         first = m.start() == 0 or step.template[:m.start()].rstrip().endswith(("(", "["))
         return f"({text})" if value < 0 and not first else text
 
     return re.sub(r"%(\d+)", repl, step.template)
 
 
+_OPS = {ast.Add: operator.add, ast.Sub: operator.sub, ast.Mult: operator.mul, ast.Div: operator.truediv,
+        ast.Pow: operator.pow}
+
+
+def evaluate_display(text: str) -> float:
+    """Value of a displayed arithmetic expression (plain markup: ``×``, ``/``, ``+``, ``-``,
+    ``^``, round and square brackets); NaN if it is not plain arithmetic."""
+    expr = (text.replace("×", "*").replace("^", "**").replace("[", "(").replace("]", ")")
+            .replace("{", "(").replace("}", ")"))
+
+    def ev(node):
+        if isinstance(node, ast.Expression):
+            return ev(node.body)
+        if isinstance(node, ast.Constant) and isinstance(node.value, (int, float)):
+            return float(node.value)
+        if isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
+            v = ev(node.operand)
+            return -v if isinstance(node.op, ast.USub) else v
+        if isinstance(node, ast.BinOp) and type(node.op) in _OPS:
+            return _OPS[type(node.op)](ev(node.left), ev(node.right))
+        raise ValueError("not plain arithmetic")
+
+    try:
+        return float(ev(ast.parse(expr, mode="eval")))
+    except (SyntaxError, ValueError, ZeroDivisionError, OverflowError):
+        return np.nan
+
+
+def _display(step: Step, decimals: int):
+    """(substituted numbers, result text) such that the numbers shown give the result shown.
+
+    Operands are first shown at the display precision; where their rounding would change the
+    last digit of the result, computed operands get guard digits (one more at a time) until
+    the displayed arithmetic reproduces the displayed result (common practice in hand
+    calculation: carry extra digits in intermediate values, round the result)."""
+    result = _fmt(step.value, step.kind, decimals) if np.isfinite(step.value) else ""
+    if not step.template:
+        return "", result
+    if not (np.isfinite(step.arith) and result):
+        return _substitute(step, decimals), result
+    for extra in range(0, 9):
+        sub = _substitute(step, decimals, extra)
+        got = evaluate_display(_markup(sub, False)) * step.convert
+        if np.isfinite(got) and _fmt(got, step.kind, decimals) == result:
+            return sub, result
+    if not np.isfinite(got):  # not plain arithmetic (no template of this module): show it as it is
+        return _substitute(step, decimals), result
+    # not reachable in practice (an exact tie at full precision): show what the numbers give
+    return sub, _fmt(got, step.kind, decimals)
+
+
 def _equation(step: Step, decimals: int) -> str:
     """The step as one line of markup: lhs = formula = numbers = result unit."""
     if not step.lhs:
         return ""
-    parts = [p for p in (step.lhs, step.formula, _substitute(step, decimals) if step.template else "") if p]
-    if np.isfinite(step.value):
-        res = _fmt(step.value, step.kind, decimals)
-        if np.isfinite(step.error) and step.error > 0:
-            res += f" ± {_fmt(step.error, step.kind, decimals)}"
+    sub, res = _display(step, decimals)
+    parts = [p for p in (step.lhs, step.formula, f"{sub} {step.template_unit}".strip()) if p]
+    if res:
+        err = _fmt_error(step.error, step.kind, decimals)
+        if err:
+            res += f" ± {err}"
         parts.append(f"{res} {step.unit}".strip())
     return " = ".join(parts)
+
+
+_MD_SPECIAL = re.compile(r"([\\`*\[\]<>])")
+
+
+def _md_text(text) -> str:
+    """Text for Markdown outside code spans: characters that could open HTML, links or code
+    (``< > [ ] ` * \\``) are backslash-escaped, so input text such as ``<img onerror=...>``
+    shows as text instead of becoming markup."""
+    return _MD_SPECIAL.sub(r"\\\1", str(text))
 
 
 # ----------------------------------------------------------------------------- building
@@ -346,9 +450,10 @@ def _absmag_step(ctx, i, band):
 
 
 def _observations(table, opts: EstimateOptions):
-    """The observables as the solver saw them (values, errors, band combinations)."""
+    """The observables as the solver saw them (values, errors, band combinations) and the
+    input frame under our column names (the column mapping applied exactly as estimate applies it)."""
     prep = prepare_observables(to_frame(table), opts)
-    return prep.obs, prep.obs_names
+    return prep.obs, prep.obs_names, prep.frame
 
 
 class _Columns:
@@ -380,6 +485,8 @@ class _Context:
     law_ref: str
     method: str
     n_draws: int
+    frame: object = None  # input rows under our column names (id, sptype ...)
+    decimals: int = DEFAULT_DECIMALS
 
 
 def _used(ctx, i):
@@ -411,7 +518,7 @@ def _fit_rows(ctx, i, used):
         y = float(ctx.obs.y[i, k])
         dmb = y - absmag - ext if is_mag else np.nan
         rows.append(FitRow(ctx.obs_names[k], y, float(ctx.obs.sigma[i, k]), absmag, coef, ext, dmb,
-                           y - absmag - ext - dm * Lk.sum(), bool(is_mag)))
+                           y - absmag - ext - dm * Lk.sum(), bool(is_mag), dm))
     return rows
 
 
@@ -420,7 +527,14 @@ def _extinction_step(ctx, i, band, ebv_symbol="E(B-V)"):
     ebv = float(r["ebv"][i])
     R = float(ctx.coef[i, band_index(band)])
     rsym = "R_{V}" if band == "V" else f"R_{{{band}}}"
-    src = f"{ctx.law} extinction law ({ctx.law_ref}) at R_V = {_fmt(float(r['rv'][i]), 'num', 0)}"
+    rv = float(r["rv"][i])
+    src = f"{ctx.law} extinction law ({ctx.law_ref}) at R_V = {_fmt(rv, 'num', 0)}"
+    lo, hi = rv_limits(ctx.law)
+    if np.isclose(rv, lo) or np.isclose(rv, hi) or not np.isfinite(float(r["e_rv"][i])):
+        if ctx.result.meta.get("R_V_free"):
+            src += (f" (R_V {'≤' if np.isclose(rv, lo) else '≥' if np.isclose(rv, hi) else '='} {rv:g}: the fit "
+                    f"stopped at the law's limit {lo:g}-{hi:g} or could not constrain R_V, so this is a limit, "
+                    "not a measurement)")
     if band == "B":
         src += "; R_B = R_V + 1 by the definition of E(B-V)"
     return Step(f"A_{band}", f"Extinction in {band}", lhs=f"A_{{{band}}}", formula=f"{rsym} × {ebv_symbol}",
@@ -461,7 +575,7 @@ def _distance_steps(ctx, i, dm_step):
     dm, e_dm = float(r["dm"][i]), float(r["e_dm"][i])
     d, lo, hi = (float(r[c][i]) for c in ("dist_pc", "dist_lo_pc", "dist_hi_pc"))
     ly = float((d * u.pc).to(u.lyr).value)
-    steps = [dm_step]
+    steps = list(dm_step) if isinstance(dm_step, list) else [dm_step]
     if ctx.method == "mc":
         steps.append(Step("dist_pc", "Distance", lhs="d", value=d, kind="pc", unit="pc",
                           text=f"median of the distances of {ctx.n_draws} Monte Carlo draws"))
@@ -469,8 +583,10 @@ def _distance_steps(ctx, i, dm_step):
         steps.append(Step("dist_pc", "Distance", lhs="d", formula="10^{(m-M)_{0}/5 + 1} pc",
                           template="10^{%0/5 + 1}", numbers=((dm, "mag"),), value=d, kind="pc", unit="pc",
                           arith=10 ** (dm / 5 + 1), source="Pogson 1856: m - M = 5 log10(d / 10 pc)"))
-    steps.append(Step("dist_ly", "Distance in light years", lhs="d", template="%0 pc", numbers=((d, "pc"),),
-                      value=ly, kind="ly", unit="ly", source="unit conversion by astropy.units"))
+    pc_ly = float((1.0 * u.pc).to(u.lyr).value)
+    steps.append(Step("dist_ly", "Distance in light years", lhs="d", template="%0", numbers=((d, "pc"),),
+                      template_unit="pc", value=ly, kind="ly", unit="ly", arith=d * pc_ly, convert=pc_ly,
+                      source=f"unit conversion by astropy.units: 1 pc = {pc_ly:.6f} ly"))
     steps.append(Step("e_dm", "Uncertainty of the distance modulus", lhs="σ_{m-M}", value=e_dm,
                       text=_budget_text(ctx, i)))
     if ctx.method == "mc":
@@ -501,10 +617,19 @@ def _budget_text(ctx, i):
     if any(ctx.obs.L[k, band_index("V")] != 1 or np.count_nonzero(ctx.obs.L[k]) > 1 for k in used):
         parts.append("intrinsic-colour scatter of the calibration")
     if str(r["lum_class"][i]).split("-")[0] in ctx.per_class:  # not for period-luminosity rows
-        parts.append(f"subtype uncertainty (±{float(r['e_sptnum'][i]):.3g} subclass)")
-    if float(r["ebv"][i]) > 0 and float(r["e_rv"][i]) > 0:
-        parts.append(f"R_V uncertainty (±{_fmt(float(r['e_rv'][i]), 'num', 0)})")
+        parts.append(f"subtype uncertainty{_pm_text(float(r['e_sptnum'][i]), ' subclass')}")
+    e_rv, rv = float(r["e_rv"][i]), float(r["rv"][i])
+    at_limit = ctx.result.meta.get("R_V_free") and any(np.isclose(rv, x) for x in rv_limits(ctx.law))
+    if float(r["ebv"][i]) > 0 and e_rv > 0:
+        parts.append(f"R_V uncertainty{_pm_text(e_rv, '')}" if np.isfinite(e_rv) and not at_limit else
+                     "R_V at the limit of the law or unconstrained by these bands (a limit, see the "
+                     "extinction step)")
     return "from the fit's covariance, which includes " + ", ".join(parts)
+
+
+def _pm_text(err: float, unit: str) -> str:
+    """" (±x unit)" for a finite positive error shown to 3 significant figures; "" otherwise."""
+    return f" (±{err:.3g}{unit})" if np.isfinite(err) and err > 0 else ""
 
 
 def _period_step(r, i, lum):
@@ -532,8 +657,8 @@ def _type_step(ctx, i, star, cls, lum):
     lum_txt = f"class {lum}" if cls[0] == cls[1] else f"classes {cls[0]} and {cls[1]} (intermediate)"
     return Step("sptnum", "Spectral type", value=sptnum, kind="num", unit="",
                 text=f"'{star.sptype}' read as {_type_name(sptnum)}, {lum_txt}; numeric type "
-                     f"{sptnum:g} (O0 = 0, B0 = 10, ..., M0 = 60), subtype uncertainty "
-                     f"±{float(r['e_sptnum'][i]):.3g} subclass")
+                     f"{sptnum:g} (O0 = 0, B0 = 10, ..., M0 = 60), subtype uncertainty"
+                     f"{_pm_text(float(r['e_sptnum'][i]), ' subclass') or ' not stated'}")
 
 
 def _lookup_steps(ctx, i, star, cls, fit, colour_known):
@@ -576,13 +701,61 @@ def _reddening_steps(ctx, i, star, used, fit, touched, colour_known, ref_band):
     ext = [_extinction_step(ctx, i, b) for b in dict.fromkeys(["V"] + touched)]
     for st in ext[1:]:  # the law is named once
         st.source = "R_B = R_V + 1 by the definition of E(B-V)" if st.key == "A_B" else ""
-    return [_fit_step(star), ebv_step] + ext + _hand_check(ctx, i, used), dm_step
+    hand = _hand_mean_step(ctx, i, cls_of(ctx, i), fit, ctx.decimals)
+    return [_fit_step(star), ebv_step] + ext + _hand_check(ctx, i, used), [dm_step] + ([hand] if hand else [])
+
+
+def cls_of(ctx, i):
+    """Luminosity class whose calibration gives the colour scatter of row i (None if none)."""
+    lc = str(ctx.result["lum_class"][i]).split("-")[0]
+    return lc if lc in ctx.per_class else None
+
+
+def _hand_mean_step(ctx, i, lc, fit, dec):
+    """Hand route beside a multi-band fit: the weighted mean of the band moduli of the fit table.
+
+    Weights w = 1 / (σ^2 + n s_c^2): σ the photometric error, s_c the calibration's colour scatter,
+    n the number of calibration colours linking the band to V (its M = M_V + n colours). The
+    numbers are the table's displayed ones, so the arithmetic is exactly what a student gets.
+    """
+    mags = [f for f in fit if f.is_magnitude and np.isfinite(f.dm_band)]
+    if len(mags) < 2:
+        return None
+    sc = ctx.cals.by_class[lc].colour_scatter if lc else 0.0
+    w = [_round_sig(1.0 / (f.sigma ** 2 + len(_chain(f.name)) * sc ** 2), 3) for f in mags]
+    dmb = [float(_band_modulus(f, dec)) for f in mags]
+    numbers, top, bottom = [], [], []
+    for k, (wk, dk) in enumerate(zip(w, dmb)):
+        numbers += [(wk, "num"), (dk, "mag")]
+        top.append(f"%{2 * k} × %{2 * k + 1}")
+        bottom.append(f"%{2 * k}")
+    step = Step("dm_hand", "Hand route: weighted mean of the band moduli (not the fitted answer)",
+                lhs="(m-M)_{0}", formula="Σ w (m - M - A) / Σ w",
+                template=f"({' + '.join(top)}) / ({' + '.join(bottom)})", numbers=tuple(numbers))
+    hand = evaluate_display(_markup(_substitute(step, dec), False))
+    fitted = float(ctx.result["dm"][i])
+    diff = fitted - hand
+    step.value = step.arith = hand
+    step.text = (f"weights w = 1/(σ^{{2}} + n s_{{c}}^{{2}}) with σ the photometric error, s_{{c}} = {sc:g} mag "
+                 "the calibration's colour scatter and n the number of colours linking the band to V; m - M - A "
+                 f"from the table (A at the fitted E(B-V)). The fit gives {_fmt(fitted, 'mag', dec)} mag, "
+                 f"{_fmt(diff, 'mag', dec)} mag from this mean ({100 * (10 ** (diff / 5) - 1):+.1f} % in distance): "
+                 "it solves E(B-V) and (m-M)_{0} together and weighs the bands with the full covariance, in which "
+                 "the scatter of M_V, of the colours and of the subtype moves the bands together")
+    return step
+
+
+def _band_modulus(f: FitRow, dec) -> str:
+    """m - M - A of a fit-table row from the displayed m, M and A (exact at ``dec`` decimals)."""
+    return _fmt(round(f.value, dec) - round(f.absmag, dec) - round(f.ext, dec), "mag", dec)
 
 
 def _star(ctx, i) -> WorkedStar:
     r = ctx.result
-    sid = str(r["id"][i]) if "id" in r.colnames else f"row {i + 1}"
-    raw = r["sptype"][i] if "sptype" in r.colnames else ""
+    named = ctx.frame.columns  # id and type under our names, whatever the input calls them
+    raw_id = ctx.frame["id"].iloc[i] if "id" in named else None
+    sid = f"row {i + 1}" if raw_id is None or (isinstance(raw_id, float) and np.isnan(raw_id)) else str(raw_id)
+    raw = ctx.frame["sptype"].iloc[i] if "sptype" in named else ""
     sptype = raw if isinstance(raw, str) else ""  # masked or a column read as numbers: no type
     flags = int(r["flags"][i])
     star = WorkedStar(i, sid, sptype, bool(np.isfinite(float(r["dm"][i]))), [], flags=flags,
@@ -644,7 +817,7 @@ def _context(table, result, options) -> _Context:
     opts = EstimateOptions(**{k: v for k, v in options.items() if k != "calibrations"},
                            calibrations=tuple(options.get("calibrations") or ()))
     cals = CalibrationSet(opts.calibrations) if opts.calibrations else default_calibrations()
-    obs, names = _observations(table, opts)
+    obs, names, frame = _observations(table, opts)
     sptnum = np.asarray(result["sptnum"], dtype=float)
     lum = np.asarray(result["lum_class"], dtype=str)
     lcb = np.array([s.split("-")[0] for s in lum], dtype=object)
@@ -658,7 +831,7 @@ def _context(table, result, options) -> _Context:
     rv = np.nan_to_num(np.asarray(result["rv"], dtype=float), nan=opts.rv)
     coef, _ = coefficients_at(opts.law, rv)
     return _Context(result, cals, obs, names, colours, per_class, coef, opts.law,
-                    meta.get("extinction_law_reference", ""), opts.method, int(opts.n_draws))
+                    meta.get("extinction_law_reference", ""), opts.method, int(opts.n_draws), frame)
 
 
 def worked_solutions(table, *, decimals: int = DEFAULT_DECIMALS, **estimate_options) -> WorkedSolution:
@@ -689,6 +862,7 @@ def worked_solutions(table, *, decimals: int = DEFAULT_DECIMALS, **estimate_opti
     result = estimate(table, explain=True, **estimate_options)
     cols = _Columns(result)
     ctx = _context(table, cols, estimate_options)
+    ctx.decimals = int(decimals)
     stars = [_star(ctx, i) for i in range(len(cols))]  # text per star; the numbers are all vectorised
     meta = cols.meta
     refs = []
@@ -699,11 +873,15 @@ def worked_solutions(table, *, decimals: int = DEFAULT_DECIMALS, **estimate_opti
     refs.append(f"Extinction law {ctx.law}: {ctx.law_ref}")
     refs.extend(_REFERENCES)
     settings = [
-        f"extinction law {ctx.law} ({ctx.law_ref}), R_V = {meta.get('R_V', '')} ± {meta.get('sigma_R_V', '')}"
+        f"extinction law {ctx.law} ({ctx.law_ref}), R_V = {meta.get('R_V', '')}"
+        + (f" ± {_fmt_error(meta.get('sigma_R_V', np.nan), 'num', 3)}" if _fmt_error(meta.get('sigma_R_V', np.nan), 'num', 3)
+           else " (held fixed, no uncertainty)")
         + (" (fitted per star where possible)" if meta.get("R_V_free") else ""),
         "error propagation: " + ("first order (analytic)" if ctx.method == "analytic"
                                  else f"Monte Carlo, {ctx.n_draws} draws, seed {meta.get('seed')}"),
         f"missing photometric errors taken as {meta.get('default_error_mag', '')} mag",
+        "every equation's result follows from the numbers it shows; where rounding them would change the "
+        "last digit, the computed numbers carry extra (guard) digits",
     ]
     settings += [f"calibration {lc}: {ctx.cals.by_class[lc].path or ctx.cals.by_class[lc].name}"
                  for lc in ctx.cals.by_class if lc in used_classes]
@@ -765,7 +943,7 @@ def _default_summary(ws, dec) -> SummaryTable:
 
 
 def _md_cell(text) -> str:
-    return str(text).replace("|", "\\|").replace("\n", " ")
+    return _md_text(text).replace("|", "\\|").replace("\n", " ")
 
 
 def _md_table(header, rows) -> list:
@@ -780,9 +958,15 @@ def _fit_header():
 
 
 def _fit_cells(f: FitRow, dec):
+    """One fit-table row; for magnitudes, m - M - A and the residual (m - M - A) - (m-M)_0 are the
+    differences of the displayed numbers, so they reproduce by hand."""
+    if f.is_magnitude:
+        dmb = _band_modulus(f, dec)
+        res = _fmt(float(dmb) - round(f.dm_fit, dec), "mag", dec)
+    else:
+        dmb, res = "(colour)", _fmt(f.residual, "mag", dec)
     return [f.name, _fmt(f.value, "mag", dec), _fmt(f.sigma, "mag", dec), _fmt(f.absmag, "mag", dec),
-            _fmt(f.coef, "coef", dec), _fmt(f.ext, "mag", dec),
-            _fmt(f.dm_band, "mag", dec) if f.is_magnitude else "(colour)", _fmt(f.residual, "mag", dec)]
+            _fmt(f.coef, "coef", dec), _fmt(f.ext, "mag", dec), dmb, res]
 
 
 def _answer_line(s: WorkedStar, dec) -> str:
@@ -815,33 +999,33 @@ def render_markdown(ws: WorkedSolution, *, title: str = "Worked solutions", deci
     """
     dec = ws.decimals if decimals is None else decimals
     _check_decimals(dec)
-    out = [f"# {title}", ""]
+    out = [f"# {_md_text(title)}", ""]
     for p in preface:
-        out += [p, ""]
-    out += ["Assumptions:", ""] + [f"- {s}" for s in ws.settings] + [""]
+        out += [_md_text(p), ""]
+    out += ["Assumptions:", ""] + [f"- {_md_text(s)}" for s in ws.settings] + [""]
     for t in list(summaries) or [_default_summary(ws, dec)]:
-        out += [f"## {t.caption}", ""] + _md_table(t.header, t.rows) + [""]
+        out += [f"## {_md_text(t.caption)}", ""] + _md_table(t.header, t.rows) + [""]
     for s in ws.stars:
-        out += [f"## {s.id}: {s.sptype}", ""]
+        out += [f"## {_md_text(s.id)}: {_md_text(s.sptype)}", ""]
         for n, st in enumerate(s.steps, 1):
             line = f"{n}. **{st.title}**"
             eq = _equation(st, dec)
             if eq:
                 line += f": `{_markup(eq, False)}`"
             if st.text:
-                text = _markup(st.text, False)
+                text = _md_text(_markup(st.text, False))
                 line += f"; {text}" if eq else f": {text}"
             out.append(line)
             if st.source:
-                out.append(f"   - source: {st.source}")
+                out.append(f"   - source: {_md_text(st.source)}")
             if st.key == "fit" and s.fit:
                 out += [""] + ["   " + ln for ln in _md_table(_fit_header(), [_fit_cells(f, dec) for f in s.fit])]
                 out.append("")
-        out += ["", f"**Answer:** {_answer_line(s, dec)}", ""]
+        out += ["", f"**Answer:** {_md_text(_answer_line(s, dec))}", ""]
         flags = _flag_lines(s)
         if flags:
-            out += ["Flags:", ""] + [f"- {f}" for f in flags] + [""]
-    out += ["## References", ""] + [f"- {r}" for r in ws.references] + [""]
+            out += ["Flags:", ""] + [f"- {_md_text(f)}" for f in flags] + [""]
+    out += ["## References", ""] + [f"- {_md_text(r)}" for r in ws.references] + [""]
     return "\n".join(out)
 
 

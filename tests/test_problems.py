@@ -15,6 +15,10 @@ from specpar.problems import make_problem_set, problem_files, write_problem_set
 from specpar.tableio import read_table
 
 
+# the tests below pick small seeds on purpose (readable, reproducible); the warning has its own test
+pytestmark = pytest.mark.filterwarnings("ignore::specpar.problems.SmallSeedWarning")
+
+
 def _files(ps, folder):
     folder.mkdir()
     files = write_problem_set(ps, folder)
@@ -24,7 +28,7 @@ def _files(ps, folder):
 def test_same_seed_same_files_different_seed_different_stars(tmp_path):
     a = _files(make_problem_set(seed=20240917, n_stars=8), tmp_path / "a")
     b = _files(make_problem_set(seed=20240917, n_stars=8), tmp_path / "b")
-    assert a == b  # byte for byte, all five files
+    assert a == b  # byte for byte, all six files
     c = make_problem_set(seed=20240918, n_stars=8)
     first = make_problem_set(seed=20240917, n_stars=8)
     assert list(c.sheet["V"]) != list(first.sheet["V"])
@@ -150,10 +154,11 @@ def test_types_and_classes_are_respected():
 
 
 def test_cli_problems(tmp_path, capsys):
-    args = ["problems", "--seed", "314159", "--n", "4", "--level", "full", "--out-dir", str(tmp_path)]
+    seed = 2 ** 70 + 314159  # long enough: no small-seed warning on stderr
+    args = ["problems", "--seed", str(seed), "--n", "4", "--level", "full", "--out-dir", str(tmp_path)]
     assert main(args) == 0
     written = sorted(p.name for p in tmp_path.iterdir())
-    assert len(written) == 5 and all(n.startswith("lab-") for n in written)
+    assert len(written) == 6 and all(n.startswith("lab-") for n in written)  # sheet: CSV, Markdown, HTML
     assert "lab-" in capsys.readouterr().out
     assert main(args) == 1  # files exist: refuse, one line on stderr
     err = capsys.readouterr().err
@@ -165,5 +170,172 @@ def test_cli_problems(tmp_path, capsys):
     with pytest.raises(SystemExit) as exc:
         main(["problems", "--seed", "1", "--level", "medium", "--out-dir", str(tmp_path)])
     assert exc.value.code == 2
-    ps = make_problem_set(seed=314159, n_stars=4)
+    ps = make_problem_set(seed=seed, n_stars=4)
     assert problem_files(ps, tmp_path)["key_html"].exists()
+
+
+# ----------------------------------------------------------------------------- the sheet must not give the key away
+
+def _old_style_label(seed):
+    """The label a student could rebuild from the generator's first draws (what the sheet must not carry)."""
+    rng = np.random.default_rng(seed)
+    return "LAB-" + "".join(chr(65 + k) for k in rng.integers(0, 26, 4))
+
+
+def test_label_is_not_a_draw_of_the_generator():
+    labels = [make_problem_set(seed=s, n_stars=1, level="simple").label for s in range(12)]
+    assert all(lab != _old_style_label(s) for s, lab in enumerate(labels))
+    assert len(set(labels)) >= 11  # still a per-seed name (4 letters: collisions are rare)
+
+
+def test_each_seed_a_student_tries_costs_key_stretching():
+    """PBKDF2 (RFC 8018) between seed and generator: trying seeds is no longer a fraction of a second
+    for thousands of them (the old label fell to a search over 10^5 seeds in well under a second)."""
+    import time
+    from specpar.problems import _derive, _KDF_ITERATIONS
+    assert _KDF_ITERATIONS >= 100_000
+    t0 = time.perf_counter()
+    for s in range(5):
+        _derive(s)
+    assert (time.perf_counter() - t0) / 5 > 0.005  # seconds per seed tried; about 0.06 s here
+
+
+def test_default_seed_has_enough_entropy_and_is_written_to_the_key_only(tmp_path):
+    import warnings
+    from specpar.problems import SEED_BITS
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no small-seed warning for a drawn seed
+        a = make_problem_set(n_stars=3)
+        b = make_problem_set(n_stars=3)
+    assert a.settings["seed"] != b.settings["seed"] and list(a.sheet["V"]) != list(b.sheet["V"])
+    assert a.settings["seed"].bit_length() > SEED_BITS - 30  # 128 random bits (fewer with probability 2^-30)
+    files = write_problem_set(a, tmp_path)
+    seed = str(a.settings["seed"])
+    for role in ("sheet_csv", "sheet_md", "sheet_html"):
+        assert seed not in files[role].read_text()
+    for role in ("key_md", "key_html"):
+        assert seed in files[role].read_text()
+    # the recorded seed makes the same set again, byte for byte
+    again = _files(make_problem_set(seed=a.settings["seed"], n_stars=3), tmp_path / "again")
+    assert again == {r: p.read_bytes() for r, p in files.items()}
+
+
+def test_small_hand_picked_seed_warns(tmp_path, capsys):
+    from specpar.problems import SmallSeedWarning
+    with pytest.warns(SmallSeedWarning, match=r"seed 1234 has only 11 bits"):
+        make_problem_set(seed=1234, n_stars=2)
+    import warnings
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        make_problem_set(seed=2 ** 64 + 1234, n_stars=2)
+    assert main(["problems", "--seed", "1234", "--n", "2", "--out-dir", str(tmp_path / "w")]) == 0
+    err = capsys.readouterr().err
+    assert err.startswith("specpar: warning: seed 1234") and err.count("\n") == 1
+    assert main(["problems", "--n", "2", "--out-dir", str(tmp_path / "x")]) == 0  # no --seed: drawn
+    assert capsys.readouterr().err == ""
+
+
+# ----------------------------------------------------------------------------- the sheet carries what the key uses
+
+def _sheet_table(md, caption_start):
+    """Rows of the Markdown table under the heading that starts with ``caption_start``."""
+    block = md.split(f"## {caption_start}", 1)[1].split("\n## ", 1)[0]
+    lines = [ln for ln in block.splitlines() if ln.startswith("| ") and not ln.startswith("| ---")]
+    header = [c.strip() for c in lines[0].strip("|").split("|")]
+    return [dict(zip(header, (c.strip() for c in ln.strip("|").split("|")))) for ln in lines[1:]]
+
+
+def test_sheet_gives_calibration_rows_coefficients_and_errors_the_key_uses(tmp_path):
+    ps = make_problem_set(seed=2 ** 80 + 17, n_stars=12, level="full")
+    md = write_problem_set(ps, tmp_path)["sheet_md"].read_text()
+    rows = {(r["type"], r["class"]): r for r in _sheet_table(md, "Calibration rows")}
+    coef = _sheet_table(md, "Extinction per unit colour excess")[0]
+    for star in ps.worked.stars:
+        name, lc = star.sptype.rsplit(" ", 1)
+        row = rows[(name, lc)]
+        assert float(row["M_V"]) == pytest.approx(star.step("mv").value, abs=5e-4)
+        assert float(row["σ(M_V)"]) == pytest.approx(star.step("mv").error, abs=5e-3)
+        for st in star.steps:
+            if st.key.startswith("c0_"):
+                assert float(row[f"({st.key[3:]})_0"]) == pytest.approx(st.value, abs=5e-4)
+            if st.key.startswith("A_") and st.numbers:
+                assert float(coef[st.key[2:]]) == pytest.approx(st.numbers[0][0], abs=5e-5)
+    # every error the key's budget names is given on the sheet
+    assert "±0.5 subclass" in md and "R_V = 3.1 ± 0.2" in md and "0.03 mag (class V)" in md
+    assert "between 4 and 16" in md
+
+
+def test_sheet_dwarf_rows_are_the_published_dwarf_sequence(tmp_path):
+    """Class V rows on the sheet equal Pecaut & Mamajek 2013 Table 5 (Mamajek's table v2022.04.16,
+    shipped in the meanstars package): M_V and (B-V)_0."""
+    MeanStars = pytest.importorskip("MeanStars").MeanStars
+    data = MeanStars().data
+    spt = list(np.asarray(data["SpT"], dtype=str))
+    ps = make_problem_set(seed=2 ** 90 + 3, n_stars=20, classes=["V"])
+    md = write_problem_set(ps, tmp_path)["sheet_md"].read_text()
+    checked = 0
+    for r in _sheet_table(md, "Calibration rows"):
+        j = spt.index(r["type"] + "V")
+        assert float(r["M_V"]) == pytest.approx(float(data["Mv"][j]), abs=5e-4)
+        assert float(r["(B-V)_0"]) == pytest.approx(float(data["B-V"][j]), abs=5e-4)
+        checked += 1
+    assert checked >= 5
+
+
+def test_simple_sheet_states_the_error_the_key_quotes(tmp_path):
+    ps = make_problem_set(seed=2 ** 70 + 5, n_stars=4, level="simple")
+    files = write_problem_set(ps, tmp_path)
+    md = files["sheet_md"].read_text()
+    assert "0.020 mag (1 sigma) on every V" in md and "±0.5 subclass" in md
+    assert set(_sheet_table(md, "Calibration rows")[0]) == {"type", "class", "M_V", "σ(M_V)"}
+    assert "σ(V) = 0.020" in files["key_md"].read_text()
+
+
+@pytest.mark.parametrize("kwargs", [dict(types=["O", "B"], classes=["V"], dist_range_pc=(10, 5000)),
+                                    dict(types=["M"], classes=["V"], dist_range_pc=(5, 3000), level="full"),
+                                    dict(level="simple", n_stars=200)])
+def test_invented_stars_stay_within_the_stated_magnitudes(kwargs):
+    """No O star at V = -2.8 or late M dwarf at V = 26 (the sheet states the V range)."""
+    ps = make_problem_set(seed=2 ** 65 + 1, **{"n_stars": 120, **kwargs})
+    lo, hi = ps.settings["v_range"]
+    v = np.asarray(ps.sheet["V"], float)
+    assert lo <= v.min() and v.max() <= hi
+    lo_d, hi_d = ps.settings["dist_range_pc"]
+    assert lo_d <= ps.truth["true_dist_pc"].min() and ps.truth["true_dist_pc"].max() <= hi_d
+
+
+def test_impossible_magnitude_range_is_a_clear_error():
+    with pytest.raises(ValueError, match="v_range"):
+        make_problem_set(seed=2 ** 65, types=["M9"], classes=["V"], dist_range_pc=(1000, 2000))
+    with pytest.raises(ValueError, match="v_range"):
+        make_problem_set(seed=2 ** 65, v_range=(16, 4))
+
+
+def test_html_sheet_is_self_contained_and_matches_the_markdown(tmp_path):
+    from html.parser import HTMLParser
+    ps = make_problem_set(seed=2 ** 66 + 9, n_stars=5)
+    files = write_problem_set(ps, tmp_path)
+    page = files["sheet_html"].read_text()
+    tags = []
+
+    class P(HTMLParser):
+        def handle_starttag(self, tag, attrs):
+            tags.append(tag)
+    P().feed(page)
+    assert {"table", "style", "ol"} <= set(tags) and "<script" not in page and "http" not in page
+    assert all(i in page for i in ps.sheet["id"])
+    assert "Calibration rows" in page and "A/E(B-V)" in page
+    assert "true" not in page.lower()
+
+
+@pytest.mark.parametrize("level", ["simple", "full"])
+def test_no_nan_or_zero_errors_in_keys_and_sheets(tmp_path, level):
+    for k, err in enumerate((0.02, 0.0002)):
+        ps = make_problem_set(seed=2 ** 70 + k, n_stars=15, level=level, error_mag=err)
+        files = write_problem_set(ps, tmp_path / f"{level}{k}")
+        for role in ("sheet_md", "sheet_html", "key_md", "key_html"):
+            text = files[role].read_text()
+            assert not re.search(r"±\s*(nan|inf|n/a|0\.0+(?![0-9]))", text), (role, err)
+            assert "nan" not in text.replace("nano", "")
+        if err < 0.001:
+            assert "0.00020" in files["sheet_md"].read_text()  # a tiny error keeps its digits

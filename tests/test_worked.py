@@ -300,3 +300,190 @@ def test_html_page_renders_in_headless_chromium(tmp_path):
     dark = (grey < 0.5).mean()
     assert 0.005 < dark < 0.5  # text on a light page: neither blank nor a single colour
     assert len(np.unique(np.round(grey, 2))) > 20  # anti-aliased text, not a flat fill
+
+
+# ----------------------------------------------------------------------------- displayed arithmetic
+
+#: 1 pc in light years from the definitions: 1 pc = 648000/pi au (IAU 2015 B2), 1 au =
+#: 149597870700 m (IAU 2012 B2), 1 ly = c x Julian year = 299792458 m/s x 365.25 x 86400 s.
+PC_IN_LY = (648000 / math.pi) * 149597870700 / (299792458 * 365.25 * 86400)
+_ARITH = re.compile(r"^[-+0-9.()\[\] ×/^]+$")
+_RESULT = re.compile(r"^(-?\d+(?:\.(\d+))?)(?: ± \S+)?(?: (\S+))?$")
+
+
+def _eval_displayed(expr: str) -> float:
+    """Independent evaluator of a displayed left side: the text turned into Python arithmetic."""
+    py = expr.replace("×", "*").replace("^", "**").replace("[", "(").replace("]", ")")
+    assert re.fullmatch(r"[-+0-9.()* /]+", py), expr
+    return float(eval(py, {"__builtins__": {}}, {}))  # digits and operators only (checked above)
+
+
+def displayed_equations(text: str):
+    """(operands text, result text) of every displayed equation ``... = operands = result unit``
+    in a Markdown key, including the unit conversion ``X pc = Y ly``."""
+    out = []
+    for code in re.findall(r"`([^`]*)`", text):
+        parts = code.split(" = ")
+        for left, right in zip(parts[:-1], parts[1:]):
+            unit_conv = re.fullmatch(r"(-?[\d.]+) pc", left)
+            if (unit_conv or (_ARITH.match(left) and re.search(r"\d\s*[-+×/^]|\)\s*/", left))) \
+                    and _RESULT.match(right):
+                out.append((left, right))
+    return out
+
+
+def fit_table_sums(text: str):
+    """(operands, result) of the fit tables' arithmetic columns: m - M - A = value - M - A and
+    residual = (m - M - A) - (m-M)_0, with (m-M)_0 the star's displayed distance modulus."""
+    out = []
+    for section in text.split("\n## ")[1:]:
+        dm = re.search(r"`\(m-M\)_0 = (-?[\d.]+) ± ", section)
+        for ln in section.splitlines():
+            cells = [c.strip() for c in ln.strip().strip("|").split("|")]
+            if len(cells) != 8 or not ln.strip().startswith("| ") or cells[6] in ("m - M - A", "(colour)", "---"):
+                continue
+            value, M, A, dmb, res = cells[1], cells[3], cells[5], cells[6], cells[7]
+            out.append((f"{value} - ({M}) - ({A})", dmb))
+            out.append((f"{dmb} - ({dm[1]})", res))
+    return out
+
+
+def check_equations(text: str):
+    """Number of displayed equations and the list of those whose displayed operands do not give the
+    displayed result at its displayed precision (fit-table columns included)."""
+    eqs = displayed_equations(text) + fit_table_sums(text)
+    bad = []
+    for left, right in eqs:
+        m = _RESULT.match(right)
+        shown, decimals, unit = m[1], len(m[2] or ""), m[3]
+        conv = re.fullmatch(r"(-?[\d.]+) pc", left)
+        value = float(conv[1]) * PC_IN_LY if conv and unit == "ly" else _eval_displayed(left)
+        if float(f"{value:.{decimals}f}") != float(shown):
+            bad.append(f"{left} = {right} (operands give {value:.{decimals + 2}f})")
+    return len(eqs), bad
+
+
+def test_displayed_equations_reproduce_on_the_sample_survey_and_invented_stars():
+    """Each displayed equation's operands, evaluated as shown, give the displayed result at the
+    displayed precision (common practice: an answer key is checkable by hand)."""
+    for table, opts in ((read_table(SAMPLE), {}), (_table(), {}), (_table(), dict(law="CCM89", rv=3.4))):
+        md = render_markdown(worked_solutions(table, **opts))
+        n, bad = check_equations(md)
+        assert n > 90 and bad == [], bad[:5]
+    # the parser sees every arithmetic step of the classic B, V star (so a wrong display would be caught)
+    eqs = [left for left, _ in displayed_equations(render_markdown(worked_solutions(_table().iloc[:1])))]
+    assert eqs[:6] == ["4.800 + 0.650", "(10.100 - 9.400) - 0.650", "3.100 × 0.050", "9.400 - 4.800 - 0.155",
+                       "10^(4.445/5 + 1)", "77.45 pc"] and len(eqs) == 9
+
+
+def test_equation_parser_catches_a_last_digit_error():
+    n, bad = check_equations("`A_V = R_V × E(B-V) = 3.100 × 0.492 = 1.524 mag` and `x = 1000 / 100.9 = 9.913 mas`")
+    assert n == 2 and len(bad) == 2
+    n, bad = check_equations("`d = 1040.2 pc = 3393 ly` `d = 10^(10.086/5 + 1) = 1040 pc`")
+    assert n == 2 and bad == []
+
+
+def test_multiband_fit_shows_the_weighted_mean_hand_route():
+    ws = worked_solutions(_table())
+    star = ws.stars[4]  # A0V with six bands: a fit
+    hand = star.step("dm_hand")
+    md = render_markdown(ws)
+    line = next(ln for ln in md.splitlines() if "Hand route" in ln and "SPX" not in ln)
+    # the hand route is the mean of the table's m - M - A weighted by 1/(σ^2 + n s_c^2)
+    weights = [float(x) for x in re.findall(r"([\d.]+) × ", line.split(" / (")[0])]
+    moduli = [float(x) for x in re.findall(r"× (-?[\d.]+)", line)]
+    assert len(weights) == len(moduli) == 6
+    assert hand.value == pytest.approx(np.dot(weights, moduli) / sum(weights), abs=1e-9)
+    assert "The fit gives" in hand.text and "% in distance" in hand.text
+    assert hand.value != star.step("dm").value
+
+
+@pytest.mark.filterwarnings("ignore::specpar.problems.SmallSeedWarning")
+@pytest.mark.parametrize("level", ["full", "simple"])
+def test_displayed_equations_reproduce_in_problem_set_keys(level):
+    """Full keys (several bands, reddening, fits) and simple keys from several seeds."""
+    from specpar.problems import make_problem_set
+    total = 0
+    for seed in (1, 2, 3, 20240917, 2 ** 100 + 7):
+        ps = make_problem_set(seed=seed, n_stars=10, level=level)
+        n, bad = check_equations(render_markdown(ps.worked))
+        assert bad == [], (seed, bad[:5])
+        total += n
+    assert total >= (1400 if level == "full" else 250)  # 300 and 60 per 10-star key
+
+
+# ----------------------------------------------------------------------------- column mapping, input text
+
+def test_worked_honours_the_column_mapping(tmp_path):
+    """With --col the key names each star by its mapped id and reads its mapped type (no 'row 171',
+    no "'' read as")."""
+    df = read_table(SAMPLE).to_pandas().rename(columns={"id": "Name", "sptype": "SpT", "V": "Vmag", "e_V": "e_Vmag"})
+    cols = {"id": "Name", "sptype": "SpT", "V": "Vmag", "e_V": "e_Vmag"}
+    ws = worked_solutions(df, columns=cols)
+    plain = worked_solutions(read_table(SAMPLE))
+    assert [s.id for s in ws.stars] == [s.id for s in plain.stars]
+    assert [s.sptype for s in ws.stars] == [s.sptype for s in plain.stars]
+    assert render_markdown(ws) == render_markdown(plain)
+    src = tmp_path / "renamed.csv"
+    df.to_csv(src, index=False)
+    out = tmp_path / "key.md"
+    args = ["worked", str(src), "-o", str(out)] + sum((["--col", f"{k}={v}"] for k, v in cols.items()), [])
+    assert main(args) == 0
+    md = out.read_text()
+    assert "## row " not in md and "'' read as" not in md
+    assert f"## {df['Name'][0]}: {df['SpT'][0]}" in md
+
+
+def test_markdown_key_neutralises_markup_from_input_text():
+    """A CommonMark renderer (markdown-it-py, the reference Python port) makes no element out of
+    input ids or types: they show as text."""
+    MarkdownIt = pytest.importorskip("markdown_it").MarkdownIt
+    t = _table().iloc[:2].copy()
+    t.loc[0, "id"] = "<img src=x onerror=alert(1)>"
+    t.loc[1, "id"] = "[click](javascript:alert(2))"
+    t.loc[1, "sptype"] = "K1 III <script>alert(3)</script>"
+    ws = worked_solutions(t)
+    md = render_markdown(ws)
+    page = MarkdownIt("commonmark").render(md)
+    assert "<img" not in page and "<script" not in page and 'href="javascript' not in page
+    assert "&lt;img src=x onerror=alert(1)&gt;" in page  # shown as text
+    assert "[click](javascript:alert(2))" in page
+    assert "<img" not in render_html(ws) and "<script>" not in render_html(ws)
+
+
+def test_tiny_errors_keep_significant_digits():
+    from specpar.worked import Step, _equation, _fmt_error
+    assert _fmt_error(0.00031, "mag", 3) == "0.00031" and _fmt_error(0.0123, "mag", 3) == "0.012"
+    assert _fmt_error(np.nan, "mag", 3) == "" and _fmt_error(0.0, "mag", 3) == ""
+    st = Step("x", "x", lhs="x", value=1.0, error=0.0002)
+    assert _equation(st, 3) == "x = 1.000 ± 0.00020 mag"
+    assert _equation(Step("x", "x", lhs="x", value=1.0, error=np.nan), 3) == "x = 1.000 mag"
+
+
+def test_no_nan_or_zero_errors_in_keys_of_the_samples():
+    for name, opts in (("survey.csv", {}), ("survey.csv", dict(fit_rv=True, sigma_rv=0.0)),
+                       ("pulsators.csv", {})):
+        path = SAMPLE.parent / name
+        if not path.exists():
+            continue
+        ws = worked_solutions(read_table(path), **opts)
+        for text in (render_markdown(ws), render_html(ws)):
+            assert not re.search(r"±\s*(nan|inf|n/a|0\.0+(?![0-9]))", text), name
+            assert "± nan" not in text and "±nan" not in text
+
+
+def test_fitted_rv_at_the_law_limit_is_written_as_a_limit():
+    """R_V fitted per star stops at the law's range (F99 in dust_extinction: 2-6); such a value is a
+    bound, so the key says so instead of quoting R_V ± error as a measurement."""
+    rows = [dict(id=f"SPX-09{k}", sptype="B2V", B=11.0, V=10.0, Ic=8.5, J=7.4, H=6.9, Ks=ks)
+            for k, ks in enumerate((5.0, 7.5))]  # invented: far too faint in the infrared, then plausible
+    df = pd.DataFrame(rows)
+    for b in ("B", "V", "Ic", "J", "H", "Ks"):
+        df[f"e_{b}"] = 0.02
+    ws = worked_solutions(df, fit_rv=True)
+    rv = np.asarray(ws.result["rv"], float)
+    assert rv[0] == pytest.approx(6.0) and 2.0 < rv[1] < 6.0
+    limit, free = ws.stars
+    assert "this is a limit, not a measurement" in limit.step("A_V").source
+    assert "R_V at the limit" in limit.step("e_dm").text and "R_V uncertainty (±" not in limit.step("e_dm").text
+    assert "limit" not in free.step("A_V").source and "R_V uncertainty (±" in free.step("e_dm").text

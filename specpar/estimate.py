@@ -638,18 +638,38 @@ def _solve_rows(frame, prep, rc, cals, opts) -> dict:
         cal, modes = rc.rows(sl)
         obs = Observables(prep.obs.y[sl], prep.obs.sigma[sl], prep.obs.L)
         r, rv_flag = _solve_chunk(obs, cal, modes, opts)
-        part = {k: getattr(r, k) for k in ("dm", "e_dm", "ebv", "e_ebv", "rv", "e_rv", "n_used",
+        part = {k: getattr(r, k) for k in ("dm", "e_dm", "ebv", "e_ebv", "corr", "rv", "e_rv", "n_used",
                                             "colour_known", "chi2", "dof", "uncalibrated")}
         part.update(p_value=r.p_value(), rv_flag=rv_flag)
         if opts.method == "mc":
             mc = _monte_carlo(obs, cal, modes, cals, rc.sptnum[sl], rc.e_spt[sl], rc.lcb[sl],
                               rc.lcf[sl], row_keys(frame.iloc[sl]), r, opts)
-            part.update(dm=mc["dm"], e_dm=mc["e_dm"], ebv=mc["ebv"], e_ebv=mc["e_ebv"],
-                        d50=mc["d50"], d16=mc["d16"], d84=mc["d84"])
+            part.update(_merge_monte_carlo(mc, r))
         else:
             part.update(d50=dm_to_pc(r.dm), d16=dm_to_pc(r.dm - r.e_dm), d84=dm_to_pc(r.dm + r.e_dm))
         parts.append(part)
     return {k: np.concatenate([part[k] for part in parts])[:N] for k in parts[0]}
+
+
+def _merge_monte_carlo(mc, r) -> dict:
+    """Monte Carlo summaries where the analytic fit has an answer, the analytic fit's
+    (missing or pinned) values where it has none.
+
+    A row without a magnitude (or without any usable observable) has no distance
+    modulus, and a row without colour information has E(B-V) pinned at 0; the draws
+    of such rows are refits of nothing and must not turn into numbers (they would
+    all give dm = 0, i.e. 10 pc). So the rows come out exactly as in analytic mode:
+    same missing values, hence the same flags and notes.
+    """
+    has_dm = np.isfinite(r.dm)
+    has_ebv = np.isfinite(r.ebv) & r.colour_known
+    nan = np.full(has_dm.shape, np.nan)
+    return dict(
+        dm=np.where(has_dm, mc["dm"], nan), e_dm=np.where(has_dm, mc["e_dm"], r.e_dm),
+        ebv=np.where(has_ebv, mc["ebv"], r.ebv), e_ebv=np.where(has_ebv, mc["e_ebv"], r.e_ebv),
+        corr=np.where(has_dm & has_ebv, mc["corr"], r.corr),
+        d50=np.where(has_dm, mc["d50"], nan), d16=np.where(has_dm, mc["d16"], nan),
+        d84=np.where(has_dm, mc["d84"], nan))
 
 
 def _fit_flags(fit, typed, opts) -> np.ndarray:

@@ -270,14 +270,15 @@ def test_overtone_row_uses_fundamental_period():
 
 
 def test_period_outside_range_is_flagged_not_extrapolated():
-    # log P0 = 0.5: outside the V/Ic/Ks calibrators (0.57-1.55) but inside J/H (0.40-1.65)
+    # log P0 = 0.5: outside the V/Ic/Ks calibrators (3.7-35.6 d, log P0 0.568-1.551) but inside
+    # J/H (0.40-1.65)
     df = pd.DataFrame({"id": ["SPX-0003", "SPX-0004"], "sptype": ["", ""], "period_d": [10 ** 0.5, 100.0],
                        "V": [10.0, 8.0], "Ic": [9.3, 7.0], "J": [8.9, 6.0], "H": [8.6, 5.6]})
     out = estimate(df, explain=True)
     assert _has(out["flags"], Flag.PERIOD_OUT_OF_RANGE).all()
     assert np.isnan(out.M_V[0]) and np.isnan(out.M_Ic[0]) and np.isfinite(out.M_J[0])
     assert np.isfinite(out.dm[0]) and out.n_obs[0] == 2  # J and H only
-    assert "not calibrated for V, B, Ic, Ks" in out.note[0] and "0.57-1.55" in out.note[0]
+    assert "not calibrated for V, B, Ic, Ks" in out.note[0] and "0.568-1.551 (P0 3.7-35.6 d)" in out.note[0]
     assert np.isnan(out.dm[1]) and _has(out["flags"], Flag.NO_DISTANCE)[1]
 
 

@@ -57,7 +57,8 @@ SENTENCES = {
     Flag.PHOT_REJECTED: "non-numeric, non-finite or implausible photometry ignored",
     Flag.NO_DISTANCE: "no distance: not enough usable photometry or calibration",
     Flag.EBV_ASSUMED_ZERO: "only one band: E(B-V) not measured, assumed 0",
-    Flag.EBV_NEGATIVE: "E(B-V) significantly negative (more than 3 sigma below 0): check type or photometry",
+    Flag.EBV_NEGATIVE: ("the fit put E(B-V) more than 3 sigma below 0: spectral type and photometry are "
+                        "inconsistent (check both)"),
     Flag.BANDS_DISAGREE: "bands disagree with the calibration (chi-square p < 0.001)",
     Flag.NO_SUBTYPE: "no subtype given: mid-class assumed with a wide uncertainty",
     Flag.BAND_UNCALIBRATED: "a band has no calibration for this type and was left out",

@@ -506,6 +506,13 @@ def _metadata(opts, cals, obs_names):
         "default_error_mag": float(opts.default_error),
         "observables_used": list(obs_names),
         "flag_bits": {f.name: int(f) for f in Flag},
+        "ebv_bound": (
+            "E(B-V) >= 0: where the fit gives E(B-V) < 0, E(B-V) is held at 0 and dm is the fit with "
+            "E(B-V) = 0; e_ebv is the root mean square of the likelihood truncated to E(B-V) >= 0, e_dm "
+            "adds the dm shift that E(B-V) within that range allows, ebv_upper is the "
+            f"{100 * UPPER_LIMIT_LEVEL:g} % upper limit and ebv_unbounded the value before the bound "
+            "(flag EBV_AT_BOUND; with Monte Carlo, the draws' mean and covariance are bounded the same "
+            "way and the distance percentiles of those rows follow from the bounded dm and e_dm)"),
         "assumptions": (
             "Absolute magnitudes and intrinsic colours are mean relations for each spectral type and "
             "luminosity class; single stars, solar-neighbourhood metallicity and one extinction law "

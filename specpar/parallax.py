@@ -587,6 +587,9 @@ def metadata(opts) -> dict:
         "distance_prior": "exponentially decreasing space density r^2 exp(-r/L) (Bailer-Jones 2015, PASP 127, 994)",
         "distance_prior_length_scale_pc": float(opts.length_scale_pc),
         "parallax_diagnosis_codes": dict(DIAG_CODES),
+        "combined_distance": ("withheld (NaN, flag PLX_COMBINED_WITHHELD) where |plx_z| exceeds "
+                              "plx_tension_threshold: the two measurements disagree and a combined "
+                              "distance would describe neither"),
     }
 
 

@@ -65,7 +65,7 @@ _HYPERGIANT = {"IA+", "IA0", "0"}
 _DASHES = re.compile("[\u2010\u2011\u2012\u2013\u2014\u2015\u2212\ufe58\ufe63\uff0d]")
 #: Mount Wilson prefixes (case-sensitive: lowercase prefix, uppercase class letter).
 #: 'd' only before F-M, where it was used; 'dA', 'dB', 'dO' would read as white dwarfs.
-_PREFIX = re.compile(r"^\s*(?P<pre>sg|d|g|c)(?=(?:[FGKM]|(?<!d)[OBA])\s*\d)")
+_PREFIX = re.compile(r"^\s*(?P<pre>sg|d|g|c)(?=(?:[FGKM]|(?<!d)[OBA])(?:\s*\d|\s*[:?]?$|\s))")
 _PREFIX_CLASS = {"d": "V", "g": "III", "sg": "I", "c": "I"}
 _PREFIX_NAME = {"d": "dwarf", "g": "giant", "sg": "supergiant", "c": "supergiant"}
 #: Am notation: k<K-line type> h<hydrogen type> m<metallic type>, any of them optional but k or h.

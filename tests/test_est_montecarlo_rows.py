@@ -21,7 +21,13 @@ def test_flags_equal_in_both_modes_on_every_sample_row(name):
     a = specpar.estimate(t)
     m = specpar.estimate(t, method="mc", n_draws=200, seed=3)
     assert len(a) == len(m) == len(t)
-    assert list(a["flags"]) == list(m["flags"])
+    fa, fm = a["flags"].to_numpy(np.int64), m["flags"].to_numpy(np.int64)
+    # E(B-V) held at 0 is decided on each mode's own estimate: where the analytic E(B-V) is within
+    # 1 sigma of 0 the draws' mean may fall on the other side of 0 (sampling noise), so that one
+    # bit is compared only away from 0; every other bit must agree on every row
+    near_zero = np.abs(a["ebv_unbounded"].to_numpy(float)) < a["e_ebv"].to_numpy(float)
+    mask = np.where(near_zero, ~np.int64(Flag.EBV_AT_BOUND), ~np.int64(0))
+    assert list(fa & mask) == list(fm & mask)
     nodist = np.isnan(a["dm"].to_numpy(float))
     # unsolvable rows: no distance in either mode, identical notes (no "only one band")
     assert np.isnan(m["dm"].to_numpy(float)[nodist]).all()

@@ -15,7 +15,8 @@ whose unbounded E(B-V) is below 0 this module
   E(B-V) >= 0 (a flat prior on the physical range) is a truncated normal; its
   95th percentile is reported as the upper limit ``ebv_upper``, and the
   uncertainty ``e_ebv`` becomes its root mean square about the reported value
-  0, ``sqrt(<E^2>)``;
+  0, ``sqrt(<E^2>)`` (closed forms with vectorised special functions: see
+  :func:`truncated_mean_square`, :func:`truncated_quantile`);
 * widens ``e_dm`` by what the bound implies: E(B-V) anywhere in the truncated
   distribution moves dm by ``b E``, so ``e_dm**2 = e_dm**2 (1 - rho**2) + b**2 <E^2>``;
 * adds the bound's price to the goodness of fit: ``chi2 += (E / e_E)**2`` and
@@ -28,6 +29,8 @@ References
 ----------
 Johnson, N. L., Kotz, S. & Balakrishnan, N. 1994, "Continuous Univariate
 Distributions", vol. 1, ch. 13 (moments and quantiles of the truncated normal;
+from memory). Abramowitz, M. & Stegun, I. A. 1964, "Handbook of Mathematical
+Functions", 7.1.23 (asymptotic series of the complementary error function;
 from memory). Conditional mean and variance of a bivariate normal: common
 practice.
 """
@@ -36,9 +39,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.stats import truncnorm
+from scipy.special import erfcx, log_ndtr, ndtri_exp
 
-__all__ = ["EbvBound", "bound_ebv", "UPPER_LIMIT_LEVEL"]
+__all__ = ["EbvBound", "bound_ebv", "truncated_mean_square", "truncated_quantile", "UPPER_LIMIT_LEVEL"]
 
 #: Probability level of the reported upper limit of E(B-V) at the bound (common practice).
 UPPER_LIMIT_LEVEL = 0.95
@@ -63,6 +66,41 @@ class EbvBound:
     ebv_upper: np.ndarray
     ebv_unbounded: np.ndarray
     e_ebv_unbounded: np.ndarray
+
+
+#: Above this bound (in sigma) the mean square uses its asymptotic series (relative error < 1e-8).
+_ASYMPTOTIC = 20.0
+
+
+def truncated_mean_square(alpha) -> np.ndarray:
+    """``<(Z - alpha)^2>`` for a unit normal Z truncated to ``Z >= alpha`` (alpha >= 0).
+
+    With the inverse Mills ratio ``lam = phi(alpha) / Q(alpha)`` it is ``1 + alpha^2 -
+    alpha lam`` (mean ``lam`` and second moment ``1 + alpha lam`` of the truncated normal);
+    ``Q / phi`` comes from the scaled complementary error function so that no tail
+    probability underflows. For large alpha that difference cancels and the asymptotic
+    series ``2/a^2 - 10/a^4 + 74/a^6 - 706/a^8 + 8162/a^10`` is used instead (obtained by
+    inverting the asymptotic series of the Mills ratio, ``Q/phi ~ (1/a)(1 - 1/a^2 + 3/a^4
+    - 15/a^6 + ...)``, Abramowitz & Stegun 1964, 7.1.23). Vectorised ufuncs only.
+    """
+    a = np.asarray(alpha, dtype=float)
+    mills = np.sqrt(np.pi / 2.0) * erfcx(a / np.sqrt(2.0))  # Q(a) / phi(a)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        direct = 1.0 + a * a - a / mills
+        x = 1.0 / (a * a)
+        series = x * (2.0 + x * (-10.0 + x * (74.0 + x * (-706.0 + x * 8162.0))))
+    return np.where(a < _ASYMPTOTIC, direct, series)
+
+
+def truncated_quantile(p, alpha) -> np.ndarray:
+    """Quantile ``p`` of ``Z - alpha`` for a unit normal Z truncated to ``Z >= alpha``.
+
+    ``P(Z > z) = (1 - p) Q(alpha)`` solved in logarithms (``log_ndtr``, ``ndtri_exp``), so
+    that it holds however far the bound lies in the tail.
+    """
+    a = np.asarray(alpha, dtype=float)
+    z = -ndtri_exp(np.log1p(-p) + log_ndtr(-a))
+    return np.maximum(z - a, 0.0)
 
 
 def bound_ebv(dm, e_dm, ebv, e_ebv, corr, chi2, dof, colour_known) -> EbvBound:
@@ -100,9 +138,8 @@ def bound_ebv(dm, e_dm, ebv, e_ebv, corr, chi2, dof, colour_known) -> EbvBound:
     if at.any():
         mu, s = ebv[at], e_ebv[at]
         alpha = -mu / s  # the bound in units of the error, > 0
-        t_mean, t_var = truncnorm.stats(alpha, np.inf, moments="mv")
-        ms = t_var + (t_mean - alpha) ** 2  # <(Z - alpha)^2>: mean square of E/s about 0
-        upper[at] = (truncnorm.ppf(UPPER_LIMIT_LEVEL, alpha, np.inf) - alpha) * s
+        ms = truncated_mean_square(alpha)  # <(E/s)^2> over the truncated likelihood
+        upper[at] = truncated_quantile(UPPER_LIMIT_LEVEL, alpha) * s
         r = np.nan_to_num(corr[at])
         b = np.where(np.isfinite(e_dm[at]), r * np.nan_to_num(e_dm[at]) / s, 0.0)
         dm[at] = dm[at] - b * mu

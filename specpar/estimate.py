@@ -726,17 +726,20 @@ def _join_detail(a, b):
 
 
 def _ebv_detail(fit, flags) -> np.ndarray:
-    """The numbers behind EBV_AT_BOUND and EBV_NEGATIVE, per row ('' elsewhere); vectorised."""
+    """The numbers behind EBV_NEGATIVE, per row ('' elsewhere); vectorised.
+
+    Only the significantly negative rows get numbers in the note (the type/photometry
+    inconsistency); any other row at the bound has them in ``ebv_unbounded`` and
+    ``ebv_upper`` and shares the flag's sentence.
+    """
     from .numfmt import decimals_for, format_pm_array
     out = np.full(len(flags), "", dtype=object)
-    rows = np.flatnonzero(fit["at_bound"])
+    rows = np.flatnonzero(fit["at_bound"] & ((flags & int(Flag.EBV_NEGATIVE)) != 0))
     if rows.size == 0:
         return out
     raw, e_raw, upper = fit["ebv_unbounded"][rows], fit["e_ebv_unbounded"][rows], fit["ebv_upper"][rows]
-    text = "unbounded fit E(B-V) = " + format_pm_array(raw, e_raw)
-    neg = (flags[rows] & int(Flag.EBV_NEGATIVE)) != 0
     sigma = np.char.mod("%.1f", -raw / e_raw).astype(object)
-    text = np.where(neg, text + " (" + sigma + " sigma below 0)", text)
+    text = "unbounded fit E(B-V) = " + format_pm_array(raw, e_raw) + " (" + sigma + " sigma below 0)"
     lim = np.full(rows.size, "", dtype=object)
     dec = decimals_for(upper)
     for d in np.unique(dec):

@@ -37,15 +37,17 @@ def test_flags_equal_in_both_modes_on_every_sample_row(name):
 
 def test_unsolvable_rows_keep_no_distance_flag_in_monte_carlo():
     df = pd.DataFrame({
-        "id": ["SPX-0001", "SPX-0002", "SPX-0003", "SPX-0004", "SPX-0005"],
-        "sptype": ["DA3", "G5V", None, "B9V", "K0III"],
-        "V": [12.0, np.nan, 11.0, 10.0, np.nan],
-        "B-V": [0.0, np.nan, 0.5, 0.1, 1.2],
+        "id": ["SPX-0001", "SPX-0002", "SPX-0003", "SPX-0004", "SPX-0005", "SPX-0006", "SPX-0007"],
+        "sptype": ["DA3", "G5V", None, "B9V", "K0III", "C5,2", "O5III"],
+        "V": [12.0, np.nan, 11.0, 10.0, np.nan, 9.0, 8.3],
+        "B-V": [0.0, np.nan, 0.5, 0.1, 1.2, 2.5, -0.3],
     })
     m = specpar.estimate(df, method="mc", n_draws=100, seed=1)
     a = specpar.estimate(df)
     flags = m["flags"].to_numpy()
-    for i in (0, 1, 2, 4):  # white dwarf, no photometry, no type, colour only
+    assert list(flags) == list(a["flags"]) and list(m["note"]) == list(a["note"])
+    # white dwarf, no photometry, no type, colour only, carbon star, type outside the calibration
+    for i in (0, 1, 2, 4, 5, 6):
         assert flags[i] & Flag.NO_DISTANCE, m.note[i]
         assert not flags[i] & Flag.EBV_ASSUMED_ZERO, m.note[i]
         assert np.isnan(m["dist_pc"][i]) and np.isnan(m["dm"][i])

@@ -371,9 +371,10 @@ def _range_details(cal, logp0, computable):
     text = np.full(logp0.size, "", dtype=object)
     for combo in np.unique(out[out != 0]):
         names = [b for k, b in enumerate(bands) if combo >> k & 1]
-        ranges = ", ".join(
-            f"{b} {max(cal.relations[r].logp_min for r in _BAND_RELATIONS[b]):g}"
-            f"-{min(cal.relations[r].logp_max for r in _BAND_RELATIONS[b]):g}" for b in names)
+        lims = {b: (max(cal.relations[r].logp_min for r in _BAND_RELATIONS[b]),
+                    min(cal.relations[r].logp_max for r in _BAND_RELATIONS[b])) for b in names}
+        ranges = ", ".join(f"{b} {lo:.3f}-{hi:.3f} (P0 {10 ** lo:.3g}-{10 ** hi:.3g} d)"
+                           for b, (lo, hi) in lims.items())
         sel = out == combo
         every = len(names) == len(bands)
         head = "no PL relation holds at log10 P0 = " if every else "log10 P0 = "

@@ -15,10 +15,12 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from astropy.table import Column, Table
+from scipy import stats
 
 from . import __version__
 from .bands import BANDS, BAND_NAMES, CALIBRATION_COLOURS, band_index, chain_matrices
 from .calibration import CalibrationSet, CalibrationValues, default_calibrations
+from .ebvbound import UPPER_LIMIT_LEVEL, bound_ebv
 from .extinction import (DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check_law,
                          coefficient_derivative, rv_limits)
 from .flags import Flag, describe, flag_names
@@ -46,8 +48,13 @@ OUTPUT_COLUMNS = {
     "mv": ("mag", "absolute V magnitude from the calibration"),
     "e_mv": ("mag", "intrinsic scatter of M_V used (widened for blended classes)"),
     "bv0": ("mag", "intrinsic (B-V)_0 from the calibration"),
-    "ebv": ("mag", "colour excess E(B-V), not clipped at zero"),
-    "e_ebv": ("mag", "1-sigma uncertainty of E(B-V)"),
+    "ebv": ("mag", "colour excess E(B-V) >= 0 (0 where the fit preferred a negative value, see ebv_upper)"),
+    "e_ebv": ("mag", "1-sigma uncertainty of E(B-V); at the bound 0, the root mean square of the "
+                     "likelihood truncated to E(B-V) >= 0"),
+    "ebv_upper": ("mag", "where E(B-V) is held at 0: 95 % upper limit from the likelihood truncated to "
+                         "E(B-V) >= 0; NaN elsewhere"),
+    "ebv_unbounded": ("mag", "E(B-V) of the fit without the bound E(B-V) >= 0 (negative values show a "
+                             "type/photometry mismatch)"),
     "rv": ("", "R_V = A_V / E(B-V) used (fitted when R_V is free)"),
     "e_rv": ("", "uncertainty of R_V used in the error budget"),
     "av": ("mag", "V-band extinction A_V = R_V E(B-V)"),
@@ -499,6 +506,13 @@ def _metadata(opts, cals, obs_names):
         "default_error_mag": float(opts.default_error),
         "observables_used": list(obs_names),
         "flag_bits": {f.name: int(f) for f in Flag},
+        "ebv_bound": (
+            "E(B-V) >= 0: where the fit gives E(B-V) < 0, E(B-V) is held at 0 and dm is the fit with "
+            "E(B-V) = 0; e_ebv is the root mean square of the likelihood truncated to E(B-V) >= 0, e_dm "
+            "adds the dm shift that E(B-V) within that range allows, ebv_upper is the "
+            f"{100 * UPPER_LIMIT_LEVEL:g} % upper limit and ebv_unbounded the value before the bound "
+            "(flag EBV_AT_BOUND; with Monte Carlo, the draws' mean and covariance are bounded the same "
+            "way and the distance percentiles of those rows follow from the bounded dm and e_dm)"),
         "assumptions": (
             "Absolute magnitudes and intrinsic colours are mean relations for each spectral type and "
             "luminosity class; single stars, solar-neighbourhood metallicity and one extinction law "
@@ -638,18 +652,55 @@ def _solve_rows(frame, prep, rc, cals, opts) -> dict:
         cal, modes = rc.rows(sl)
         obs = Observables(prep.obs.y[sl], prep.obs.sigma[sl], prep.obs.L)
         r, rv_flag = _solve_chunk(obs, cal, modes, opts)
-        part = {k: getattr(r, k) for k in ("dm", "e_dm", "ebv", "e_ebv", "rv", "e_rv", "n_used",
+        part = {k: getattr(r, k) for k in ("dm", "e_dm", "ebv", "e_ebv", "corr", "rv", "e_rv", "n_used",
                                             "colour_known", "chi2", "dof", "uncalibrated")}
-        part.update(p_value=r.p_value(), rv_flag=rv_flag)
+        part.update(rv_flag=rv_flag)
         if opts.method == "mc":
             mc = _monte_carlo(obs, cal, modes, cals, rc.sptnum[sl], rc.e_spt[sl], rc.lcb[sl],
                               rc.lcf[sl], row_keys(frame.iloc[sl]), r, opts)
-            part.update(dm=mc["dm"], e_dm=mc["e_dm"], ebv=mc["ebv"], e_ebv=mc["e_ebv"],
-                        d50=mc["d50"], d16=mc["d16"], d84=mc["d84"])
+            part.update(_merge_monte_carlo(mc, r))
         else:
             part.update(d50=dm_to_pc(r.dm), d16=dm_to_pc(r.dm - r.e_dm), d84=dm_to_pc(r.dm + r.e_dm))
+        part.update(_apply_ebv_bound(part))
         parts.append(part)
     return {k: np.concatenate([part[k] for part in parts])[:N] for k in parts[0]}
+
+
+def _apply_ebv_bound(part) -> dict:
+    """E(B-V) >= 0 (see :mod:`specpar.ebvbound`): rows fitted below 0 are held at 0, with
+    the distance modulus of that fit, errors widened by what the bound allows, and the
+    distance percentiles of the bounded distance modulus (Monte Carlo rows too)."""
+    b = bound_ebv(part["dm"], part["e_dm"], part["ebv"], part["e_ebv"], part["corr"], part["chi2"],
+                  part["dof"], part["colour_known"])
+    at = b.at_bound
+    with np.errstate(invalid="ignore"):
+        p_value = np.where(b.dof > 0, stats.chi2.sf(b.chi2, np.maximum(b.dof, 1)), np.nan)
+    return dict(
+        dm=b.dm, e_dm=b.e_dm, ebv=b.ebv, e_ebv=b.e_ebv, chi2=b.chi2, dof=b.dof, p_value=p_value,
+        at_bound=at, ebv_upper=b.ebv_upper, ebv_unbounded=b.ebv_unbounded, e_ebv_unbounded=b.e_ebv_unbounded,
+        d50=np.where(at, dm_to_pc(b.dm), part["d50"]), d16=np.where(at, dm_to_pc(b.dm - b.e_dm), part["d16"]),
+        d84=np.where(at, dm_to_pc(b.dm + b.e_dm), part["d84"]))
+
+
+def _merge_monte_carlo(mc, r) -> dict:
+    """Monte Carlo summaries where the analytic fit has an answer, the analytic fit's
+    (missing or pinned) values where it has none.
+
+    A row without a magnitude (or without any usable observable) has no distance
+    modulus, and a row without colour information has E(B-V) pinned at 0; the draws
+    of such rows are refits of nothing and must not turn into numbers (they would
+    all give dm = 0, i.e. 10 pc). So the rows come out exactly as in analytic mode:
+    same missing values, hence the same flags and notes.
+    """
+    has_dm = np.isfinite(r.dm)
+    has_ebv = np.isfinite(r.ebv) & r.colour_known
+    nan = np.full(has_dm.shape, np.nan)
+    return dict(
+        dm=np.where(has_dm, mc["dm"], nan), e_dm=np.where(has_dm, mc["e_dm"], r.e_dm),
+        ebv=np.where(has_ebv, mc["ebv"], r.ebv), e_ebv=np.where(has_ebv, mc["e_ebv"], r.e_ebv),
+        corr=np.where(has_dm & has_ebv, mc["corr"], r.corr),
+        d50=np.where(has_dm, mc["d50"], nan), d16=np.where(has_dm, mc["d16"], nan),
+        d84=np.where(has_dm, mc["d84"], nan))
 
 
 def _fit_flags(fit, typed, opts) -> np.ndarray:
@@ -659,11 +710,42 @@ def _fit_flags(fit, typed, opts) -> np.ndarray:
     flags |= np.where(~nodist & ~fit["colour_known"], int(Flag.EBV_ASSUMED_ZERO), 0)
     flags |= np.where(fit["uncalibrated"] & typed, int(Flag.BAND_UNCALIBRATED), 0)
     with np.errstate(invalid="ignore"):
-        flags |= np.where(fit["colour_known"] & (fit["ebv"] + 3 * fit["e_ebv"] < 0), int(Flag.EBV_NEGATIVE), 0)
+        raw, e_raw = fit["ebv_unbounded"], fit["e_ebv_unbounded"]
+        flags |= np.where(fit["colour_known"] & (raw + 3 * e_raw < 0), int(Flag.EBV_NEGATIVE), 0)
+        flags |= np.where(fit["at_bound"], int(Flag.EBV_AT_BOUND), 0)
         flags |= np.where(fit["p_value"] < 1e-3, int(Flag.BANDS_DISAGREE), 0)
     if opts.fit_rv:
         flags |= np.where(fit["rv_flag"] & ~nodist, int(Flag.RV_UNCONSTRAINED), 0)
     return flags
+
+
+def _join_detail(a, b):
+    """Element-wise '; '-join of two object arrays of text, skipping empty ones."""
+    a, b = np.asarray(a, dtype=object), np.asarray(b, dtype=object)
+    return np.where(b != "", np.where(a != "", a + "; ", "") + b, a)
+
+
+def _ebv_detail(fit, flags) -> np.ndarray:
+    """The numbers behind EBV_NEGATIVE, per row ('' elsewhere); vectorised.
+
+    Only the significantly negative rows get numbers in the note (the type/photometry
+    inconsistency); any other row at the bound has them in ``ebv_unbounded`` and
+    ``ebv_upper`` and shares the flag's sentence.
+    """
+    from .numfmt import decimals_for, format_pm_array
+    out = np.full(len(flags), "", dtype=object)
+    rows = np.flatnonzero(fit["at_bound"] & ((flags & int(Flag.EBV_NEGATIVE)) != 0))
+    if rows.size == 0:
+        return out
+    raw, e_raw, upper = fit["ebv_unbounded"][rows], fit["e_ebv_unbounded"][rows], fit["ebv_upper"][rows]
+    sigma = np.char.mod("%.1f", -raw / e_raw).astype(object)
+    text = "unbounded fit E(B-V) = " + format_pm_array(raw, e_raw) + " (" + sigma + " sigma below 0)"
+    lim = np.full(rows.size, "", dtype=object)
+    dec = decimals_for(upper)
+    for d in np.unique(dec):
+        lim[dec == d] = np.char.mod(f"%.{d}f", upper[dec == d]).astype(object)
+    out[rows] = text + f"; E(B-V) held at 0, {100 * UPPER_LIMIT_LEVEL:g} % upper limit " + lim
+    return out
 
 
 def run_estimate(table, opts: EstimateOptions):
@@ -677,7 +759,7 @@ def run_estimate(table, opts: EstimateOptions):
     fit = _solve_rows(frame, prep, rc, cals, opts)
     u, code = rc.ucal, rc.code  # per-row values are read through the code, not copied whole
     flags = rc.flags | _fit_flags(fit, np.isfinite(u.absmag[code, band_index("V")]), opts)
-    detail = rc.detail
+    detail = _join_detail(rc.detail, _ebv_detail(fit, flags))
     nodist = ~np.isfinite(fit["dm"])
     ebv, e_ebv, rv_used, e_rv, e_dm = fit["ebv"], fit["e_ebv"], fit["rv"], fit["e_rv"], fit["e_dm"]
     plx = 1000.0 / fit["d50"]
@@ -691,6 +773,7 @@ def run_estimate(table, opts: EstimateOptions):
         "dm": fit["dm"], "e_dm": e_dm, "dist_pc": fit["d50"], "dist_lo_pc": fit["d16"],
         "dist_hi_pc": fit["d84"], "plx_phot_mas": plx, "e_plx_phot_mas": plx * np.log(10) / 5.0 * e_dm,
         "chi2": fit["chi2"], "dof": np.maximum(fit["dof"], 0), "n_obs": fit["n_used"],
+        "ebv_upper": fit["ebv_upper"], "ebv_unbounded": fit["ebv_unbounded"],
     }
     for k in ("dm", "e_dm", "dist_pc", "dist_lo_pc", "dist_hi_pc", "plx_phot_mas", "e_plx_phot_mas"):
         results[k] = np.where(nodist, np.nan, results[k])  # colours alone still give E(B-V)

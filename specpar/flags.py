@@ -30,15 +30,20 @@ class Flag(enum.IntFlag):
     NO_SUBTYPE = 1 << 12
     BAND_UNCALIBRATED = 1 << 13
     RV_UNCONSTRAINED = 1 << 14
+    EBV_AT_BOUND = 1 << 15
     # parallax cross-check (bits 16-23)
     PLX_TENSION = 1 << 16
     PLX_REJECTED = 1 << 17
     PLX_LOW_SNR = 1 << 18
     PLX_UNITS_SUSPECT = 1 << 19
+    PLX_COMBINED_WITHHELD = 1 << 20
     # period-luminosity rows (bits 24-27)
     PERIOD_OUT_OF_RANGE = 1 << 24
     PERIOD_INVALID = 1 << 25
     MODE_UNKNOWN = 1 << 26
+    # type reading (bits 28-31)
+    TYPE_COMPOSITE = 1 << 28
+    LUMCLASS_NEAREST = 1 << 29
 
 
 SENTENCES = {
@@ -52,18 +57,25 @@ SENTENCES = {
     Flag.PHOT_REJECTED: "non-numeric, non-finite or implausible photometry ignored",
     Flag.NO_DISTANCE: "no distance: not enough usable photometry or calibration",
     Flag.EBV_ASSUMED_ZERO: "only one band: E(B-V) not measured, assumed 0",
-    Flag.EBV_NEGATIVE: "E(B-V) significantly negative (more than 3 sigma below 0): check type or photometry",
+    Flag.EBV_NEGATIVE: ("the fit put E(B-V) more than 3 sigma below 0: spectral type and photometry are "
+                        "inconsistent (check both)"),
     Flag.BANDS_DISAGREE: "bands disagree with the calibration (chi-square p < 0.001)",
     Flag.NO_SUBTYPE: "no subtype given: mid-class assumed with a wide uncertainty",
     Flag.BAND_UNCALIBRATED: "a band has no calibration for this type and was left out",
     Flag.RV_UNCONSTRAINED: "R_V could not be fitted from these bands: the fixed value was used",
+    Flag.EBV_AT_BOUND: ("the fit preferred a negative E(B-V): E(B-V) held at its physical bound 0, "
+                        "ebv_upper gives the 95 % upper limit"),
     Flag.PLX_TENSION: "photometric and trigonometric parallaxes disagree",
     Flag.PLX_REJECTED: "parallax or its error unusable and ignored",
     Flag.PLX_LOW_SNR: "parallax error above 17.5 % of the parallax: 1/parallax is a biased distance (Lutz & Kelker 1973)",
     Flag.PLX_UNITS_SUSPECT: "parallaxes look like arcsec, not mas: check units",
+    Flag.PLX_COMBINED_WITHHELD: ("parallax and photometric distance disagree beyond the tension threshold: "
+                                 "no combined distance given"),
     Flag.PERIOD_OUT_OF_RANGE: "pulsation period outside the calibrated range (not extrapolated)",
     Flag.PERIOD_INVALID: "pulsation period is zero, negative or not a number",
     Flag.MODE_UNKNOWN: "pulsation mode not recognised",
+    Flag.TYPE_COMPOSITE: "composite spectrum: the primary's type was used, the companion's light is not modelled",
+    Flag.LUMCLASS_NEAREST: "luminosity class partly beyond the calibrated classes: the nearest calibrated class was used",
 }
 
 

@@ -19,7 +19,13 @@ in milliarcseconds, every row also gets:
   to add, or reasons to distrust the parallax itself;
 * distance posteriors with an exponentially decreasing space density prior
   (Bailer-Jones 2015): parallax alone, and parallax combined with the
-  photometric distance modulus; median and 16th/84th percentiles.
+  photometric distance modulus; median and 16th/84th percentiles. The
+  combined distance is withheld (flag PLX_COMBINED_WITHHELD) where the two
+  disagree beyond the threshold: a product of two incompatible likelihoods is
+  narrow but describes neither measurement;
+* at low parallax signal-to-noise (``|plx| <= threshold * e_plx``) no compound
+  diagnosis: such a parallax cannot tell the explanations apart, and the note
+  says so (code ``plx_uninformative``).
 
 Zero and negative parallaxes are measurements like any other: they enter the
 likelihoods unchanged and are never inverted.
@@ -71,7 +77,8 @@ COLUMNS = {
     "dist_plx_pc": ("pc", "distance from the parallax alone with the space-density prior, median"),
     "dist_plx_lo_pc": ("pc", "distance from the parallax alone, 16th percentile"),
     "dist_plx_hi_pc": ("pc", "distance from the parallax alone, 84th percentile"),
-    "dist_comb_pc": ("pc", "distance from parallax, distance modulus and prior together, median"),
+    "dist_comb_pc": ("pc", "distance from parallax, distance modulus and prior together, median; "
+                           "withheld (NaN, flag PLX_COMBINED_WITHHELD) where |plx_z| is above the threshold"),
     "dist_comb_lo_pc": ("pc", "combined distance, 16th percentile"),
     "dist_comb_hi_pc": ("pc", "combined distance, 84th percentile"),
 }
@@ -82,6 +89,9 @@ DIAG_CODES = {
     "companion": "an unresolved companion adding at most an equal-mass pair's 0.75 mag would reconcile it",
     "plx_suspect": "the parallax itself is doubtful: negative beyond the threshold, fractional error "
                    "above 0.175, or apparently in arcsec",
+    "plx_uninformative": "the parallax is consistent with zero within the threshold (|plx| <= threshold x "
+                         "e_plx): it says only that the star is farther than its type predicts and cannot "
+                         "tell a brighter class, a companion and a parallax error apart; given alone",
     "unexplained": "none of the above accounts for the difference",
 }
 
@@ -434,10 +444,12 @@ def _companion(plx, e_plx, dm, e_dm, threshold, max_mag=8.0):
 
 def _diagnose(rows, results, p, units, cals, sptnum, lc_bright, lc_faint, threshold):
     """Codes and sentences for the rows in tension."""
+    from .numfmt import format_pm_array
     plx, e_plx = p.plx[rows], p.e_plx[rows]
     P, S, z = (results[k][rows] for k in ("plx_phot_mas", "e_plx_phot_mas", "plx_z"))
-    text = ("parallax " + _fmt("%.3g", plx) + " +- " + _fmt("%.2g", e_plx) + " mas vs photometric "
-            + _fmt("%.3g", P) + " +- " + _fmt("%.2g", S) + " mas (z = " + _fmt("%+.1f", z) + ")")
+    text = ("parallax " + format_pm_array(plx, e_plx, "mas") + " vs photometric "
+            + format_pm_array(P, S, "mas") + " (z = " + _fmt("%+.1f", z) + ")")
+    head = text.copy()
     codes = np.full(rows.size, "", object)
 
     def add(mask, sentence, code=None):
@@ -476,7 +488,22 @@ def _diagnose(rows, results, p, units, cals, sptnum, lc_bright, lc_faint, thresh
     shift = (plx - P) - np.sign(plx - P) * threshold * np.hypot(e_plx, S)
     add(codes == "", "the parallax would have to be off by about " + _fmt("%.3g", shift)
         + " mas (" + _fmt("%.1f", np.abs(shift) / e_plx) + " times its error) to agree", "unexplained")
-    return codes, text
+    # a parallax within the threshold of zero cannot choose between the explanations above: one
+    # plain statement instead of a compound diagnosis (a negative one beyond it is suspect alone)
+    base = head
+    snr = plx / e_plx
+    zero = np.abs(snr) <= threshold
+    codes = np.where(zero, "plx_uninformative", np.where(neg, "plx_suspect", codes))
+    text = np.where(zero, base + "; parallax/error = " + _fmt("%.1f", snr) + ", consistent with zero within "
+                    + f"{threshold:g} sigma: the parallax says only that the star is farther than its type "
+                    "predicts and cannot discriminate between a brighter luminosity class, a companion and "
+                    "an error in the parallax", text)
+    text = np.where(neg, base + "; parallax negative by " + _fmt("%.1f", -snr)
+                    + " sigma: no distance fits it, the parallax or its error is wrong", text)
+    # each code once (e.g. a weak parallax that also looks like arcsec is 'plx_suspect', not twice)
+    distinct = pd.unique(codes)
+    once = {c: "+".join(dict.fromkeys(c.split("+"))) for c in distinct}
+    return pd.Series(codes, dtype=object).map(once).to_numpy(object), text
 
 
 # ----------------------------------------------------------------------------- main hook
@@ -527,6 +554,11 @@ def crosscheck(frame, results, *, cals, sptnum, lc_bright, lc_faint, opts):
     flags[tense] |= int(Flag.PLX_TENSION)
     only = distance_posterior(p.plx, p.e_plx, length_scale_pc=opts.length_scale_pc)
     comb = distance_posterior(p.plx, p.e_plx, dm=dm, e_dm=e_dm, length_scale_pc=opts.length_scale_pc)
+    # parallax and photometry in tension: their combination would be a tight distance that fits
+    # neither, so it is withheld (and flagged) rather than given
+    flags[tense] |= int(Flag.PLX_COMBINED_WITHHELD)
+    for arr in (comb.median, comb.lo, comb.hi):
+        arr[tense] = np.nan
     cols = {
         "plx_corr_mas": p.plx, "e_plx_corr_mas": p.e_plx, "plx_snr": snr,
         "plx_z": z, "plx_diag": np.full(len(z), "", object),
@@ -555,6 +587,9 @@ def metadata(opts) -> dict:
         "distance_prior": "exponentially decreasing space density r^2 exp(-r/L) (Bailer-Jones 2015, PASP 127, 994)",
         "distance_prior_length_scale_pc": float(opts.length_scale_pc),
         "parallax_diagnosis_codes": dict(DIAG_CODES),
+        "combined_distance": ("withheld (NaN, flag PLX_COMBINED_WITHHELD) where |plx_z| exceeds "
+                              "plx_tension_threshold: the two measurements disagree and a combined "
+                              "distance would describe neither"),
     }
 
 
@@ -587,25 +622,34 @@ def _draw(data: pd.DataFrame, threshold: float):
         ax.errorbar(data["plx_phot_mas"][sel], data["plx"][sel], xerr=data["e_plx_phot_mas"][sel],
                     yerr=data["e_plx"][sel], fmt="o", ms=3, elinewidth=0.6, alpha=0.8, **style)
     if ok.any():
+        from matplotlib.ticker import FuncFormatter
         span = np.concatenate([data["plx"][ok], data["plx_phot_mas"][ok]])
         lim = (span.min(), span.max())
-        ax.plot(lim, lim, color="k", lw=1, label="1:1")
+        positive = span[span > 0]
+        if positive.size:  # equality is only possible for positive parallaxes: no line below zero
+            ax.plot((positive.min(), lim[1]), (positive.min(), lim[1]), color="k", lw=1,
+                    label="1:1 (equal parallaxes)")
         if lim[0] > 0:
             ax.set_xscale("log"), ax.set_yscale("log")
         else:  # zero or negative parallaxes: logarithmic only beyond the typical error
             lin = float(np.nanmedian(data["e_plx"][ok]))
             ax.set_xscale("symlog", linthresh=lin), ax.set_yscale("symlog", linthresh=lin)
+        plain = FuncFormatter(lambda v, _pos: f"{v:g}")  # 0.1, 1, -1, 10 rather than 10^-1 or -10^0
+        for axis in (ax.xaxis, ax.yaxis):
+            axis.set_major_formatter(plain)
     ax.set_xlabel("photometric parallax (mas)")
     ax.set_ylabel("trigonometric parallax (mas)")
     ax.legend(loc="upper left", fontsize=8)
     z = data["plx_z"].to_numpy()
     z = z[np.isfinite(z)]
     bins = np.linspace(-6, 6, 49)
-    hx.hist(np.clip(z, -6, 6), bins=bins, color="0.6", label=f"{z.size} stars (clipped at +-6)")
+    outside = int((np.abs(z) >= 6).sum())
+    hx.hist(np.clip(z, -6, 6), bins=bins, color="0.6",
+            label=f"{z.size} stars" + (f" ({outside} with |z| > 6 in the end bins)" if outside else ""))
     x = np.linspace(-6, 6, 300)
-    inside = int((np.abs(z) < 6).sum())
+    inside = z.size - outside
     hx.plot(x, inside * (bins[1] - bins[0]) * np.exp(-0.5 * x ** 2) / np.sqrt(2 * np.pi), "k-",
-            label=f"unit normal ({inside} stars)")
+            label=f"expected if both distances are right:\nN(0, 1) scaled to the {inside} stars with |z| < 6")
     for sign in (-1, 1):
         hx.axvline(sign * threshold, color="tab:red", ls="--", lw=1)
     hx.set_xlabel("z: trigonometric minus photometric parallax, in sigma")

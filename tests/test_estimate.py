@@ -52,9 +52,11 @@ def test_intermediate_class_blends_neighbours_and_widens_scatter():
 
 
 def test_negative_reddening_reported_and_flagged_not_clipped():
+    # changed deliberately (issue 9 item 5): E(B-V) is now bounded at 0; the unbounded value is
+    # still reported (ebv_unbounded and the note) and flagged
     out = specpar.estimate(pd.DataFrame([{"sptype": "B9V", "B": 8.10, "e_B": 0.01, "V": 8.65, "e_V": 0.01}]))
-    assert out["ebv"][0] < -0.3
-    assert out["flags"][0] & Flag.EBV_NEGATIVE
+    assert out["ebv_unbounded"][0] < -0.3 and out["ebv"][0] == 0.0
+    assert out["flags"][0] & Flag.EBV_NEGATIVE and out["flags"][0] & Flag.EBV_AT_BOUND
 
 
 def test_type_outside_calibration_flagged_no_extrapolation():

@@ -41,29 +41,39 @@ UDALSKI = ("scatter: OGLE-II LMC fundamental-mode dispersion, Udalski et al. 199
            "(1999AcA....49..201U) (from memory)")
 PERSSON = ("scatter: LMC near-infrared dispersion, Persson et al. 2004, AJ 128, 2239 "
            "(2004AJ....128.2239P) (from memory, rounded)")
-RANGE_B07 = "period range: that of the ten calibrators, 3.7-35.6 d (from memory)"
+RANGE_B07 = ("period range: that of the ten calibrators, 3.7-35.6 d (from memory); logP_min and logP_max "
+             "are log10 of these periods, unrounded, so that the shortest- and longest-period calibrators "
+             "are inside")
 RANGE_APPROX = "period range: that of the Galactic calibrating sample, approximate (from memory)"
 
-# name, kind, slope, e_slope, zp, e_zp, pivot, sigma, logP_min, logP_max, role, source
+#: Period ranges in days. The Benedict et al. (2007) relations hold over the periods of their
+#: ten calibrators, 3.7-35.6 d (from memory); the limits are stored as log10 of these periods
+#: without rounding (rounding 1.5514 down to 1.55 used to reject the longest-period calibrator).
+P_B07 = (np.log10(3.7), np.log10(35.6))
+#: Approximate period range of the Galactic calibrating samples of Fouque et al. (2007) and
+#: Tammann, Sandage & Reindl (2003): log10 P0 = 0.40-1.65 (from memory, approximate).
+P_APPROX = (0.40, 1.65)
+
+# name, kind, slope, e_slope, zp, e_zp, pivot, sigma, (logP_min, logP_max), role, source
 ROWS = [
-    ("V", "PL", -2.43, 0.12, -4.05, 0.02, 1.0, 0.159, 0.57, 1.55, "used",
+    ("V", "PL", -2.43, 0.12, -4.05, 0.02, 1.0, 0.159, *P_B07, "used",
      f"{BENEDICT}; {UDALSKI}; {RANGE_B07}"),
-    ("Ic", "PL", -2.81, 0.11, -4.78, 0.03, 1.0, 0.109, 0.57, 1.55, "check",
+    ("Ic", "PL", -2.81, 0.11, -4.78, 0.03, 1.0, 0.109, *P_B07, "check",
      f"{BENEDICT}; {UDALSKI}; {RANGE_B07}; not used directly: M_Ic = M_V - (V-Ic)_0 with "
      "(V-Ic)_0 = (M_V - M_W)/R_W, so that V and Ic together give the W_VI distance; kept to check "
      "that the implied Ic relation agrees with the published one"),
-    ("J", "PL", -3.194, 0.068, -5.274, 0.021, 1.0, 0.120, 0.40, 1.65, "used",
+    ("J", "PL", -3.194, 0.068, -5.274, 0.021, 1.0, 0.120, *P_APPROX, "used",
      f"{FOUQUE}; {PERSSON}; {RANGE_APPROX}"),
-    ("H", "PL", -3.328, 0.064, -5.606, 0.020, 1.0, 0.110, 0.40, 1.65, "used",
+    ("H", "PL", -3.328, 0.064, -5.606, 0.020, 1.0, 0.110, *P_APPROX, "used",
      f"{FOUQUE}; {PERSSON}; {RANGE_APPROX}"),
-    ("Ks", "PL", -3.32, 0.12, -5.71, 0.03, 1.0, 0.108, 0.57, 1.55, "used",
+    ("Ks", "PL", -3.32, 0.12, -5.71, 0.03, 1.0, 0.108, *P_B07, "used",
      f"{BENEDICT}; {PERSSON}; {RANGE_B07}; published K system, the few-hundredths difference "
      "to 2MASS Ks (Carpenter 2001, AJ 121, 2851) is not applied"),
-    ("W_VI", "PL", -3.34, 0.16, -5.87, 0.02, 1.0, 0.076, 0.57, 1.55, "used",
+    ("W_VI", "PL", -3.34, 0.16, -5.87, 0.02, 1.0, 0.076, *P_B07, "used",
      f"{BENEDICT}; W_VI = V - R_W (V - Ic) with R_W in the table meta; {UDALSKI}; {RANGE_B07}"),
-    ("B-V", "PC", 0.366, 0.015, 0.361, 0.010, 0.0, 0.070, 0.40, 1.65, "used",
+    ("B-V", "PC", 0.366, 0.015, 0.361, 0.010, 0.0, 0.070, *P_APPROX, "used",
      f"{TSR03}; {RANGE_APPROX}"),
-    ("V-Ic", "PC", 0.256, 0.015, 0.497, 0.010, 0.0, 0.070, 0.40, 1.65, "check",
+    ("V-Ic", "PC", 0.256, 0.015, 0.497, 0.010, 0.0, 0.070, *P_APPROX, "check",
      f"{TSR03}; {RANGE_APPROX}; not used: (V-Ic)_0 follows from the V and W_VI relations, this "
      "one checks it"),
 ]

@@ -159,7 +159,9 @@ def test_roundtrip_coverage_where_the_bound_acts(ebv_range):
     t, truth = draw_stars(np.random.default_rng(99), 3000, types, spec["mags"], ebv_range=ebv_range)
     out = specpar.estimate(t)
     at = (out["flags"] & Flag.EBV_AT_BOUND) != 0
-    assert 0.2 < at.mean() < 0.6  # the bound acts on a large part of these stars
+    # the bound acts on a large part of these stars (about 0.45 when all are unreddened,
+    # about 0.2 when E(B-V) is uniform in 0-0.05, depending on the tables' colour scatter)
+    assert 0.1 < at.mean() < 0.6
     s = summarise(out, truth)
     assert abs(s["coverage"] - 0.6827) < 0.03, s
     assert abs(s["pull_dm"] - 1.0) < 0.05, s

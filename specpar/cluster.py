@@ -1520,6 +1520,9 @@ def _cmd_cluster(args):
     for f in (args.plot, args.twocolour):
         if f and not str(f).lower().endswith((".png", ".pdf")):
             raise ValueError(f"plot file {f} must end in .png or .pdf")
+    if args.output:  # checked before any computing (never over the table or the locus file)
+        from .tableio import check_output
+        check_output(args.output, args.out_format, inputs=[args.input, args.locus], overwrite=args.overwrite)
     table = read_table(args.input, args.in_format)
     res = fit_cluster(
         table, law=args.law, rv=args.rv, locus=args.locus, magnitude=args.magnitude,
@@ -1531,7 +1534,7 @@ def _cmd_cluster(args):
         method="bootstrap" if args.bootstrap else "profile", n_boot=args.bootstrap or 50,
         seed=args.seed, field_model=args.field_model)
     if args.output:
-        write_table(res.members, args.output, args.out_format, inputs=[args.input],
+        write_table(res.members, args.output, args.out_format, inputs=[args.input, args.locus],
                     overwrite=args.overwrite)
     from .clusterplots import plot_cmd, plot_two_colour
     if args.plot:

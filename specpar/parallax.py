@@ -637,6 +637,8 @@ def plot_parallax(table, path, *, threshold=None, overwrite=False, inputs=()):
     if threshold is None:
         meta = (table.attrs if isinstance(table, pd.DataFrame) else table.meta).get("specpar", {})
         threshold = float((meta or {}).get("parallax", {}).get("plx_tension_threshold", 3.0))
+    if threshold is not None and not (np.isfinite(threshold) and threshold > 0):
+        raise ValueError(f"tension threshold must be a finite number > 0 (in sigma, e.g. 3), got {threshold}")
     fig = _draw(_plot_frame(table), threshold)
     atomic_write(path, lambda tmp: fig.savefig(tmp, format=fmt, dpi=120), inputs=inputs,
                  overwrite=overwrite, what="figure")
@@ -644,6 +646,8 @@ def plot_parallax(table, path, *, threshold=None, overwrite=False, inputs=()):
 
 def _cmd_plot(args):
     from .tableio import read_table
+    if args.tension is not None and not (np.isfinite(args.tension) and args.tension > 0):
+        raise ValueError(f"--tension must be a finite number > 0 (in sigma, e.g. 3), got {args.tension}")
     table = read_table(args.table, args.in_format)
     plot_parallax(table, args.output, threshold=args.tension, overwrite=args.overwrite, inputs=[args.table])
     return 0

@@ -401,7 +401,10 @@ def check_output(path, fmt=None, *, inputs=(), overwrite=False, what="output") -
         One message naming the problem and how to fix it.
     """
     if _is_stdout(path):
-        return guess_format("", fmt or "csv")
+        fmt = guess_format("", fmt or "csv")
+        if fmt not in ("csv", "text", "ecsv"):
+            raise ValueError(f"{fmt} cannot be written to standard output; use csv, text or ecsv with -o -")
+        return fmt
     path = Path(path)
     fmt = guess_format(path, fmt)
     folder = path.parent

@@ -43,6 +43,9 @@ MAX_MAG_ERROR = 1.0
 #: A colour column that differs from the colour of its two magnitudes in the
 #: same row by more than this many combined sigmas is noted (the magnitudes are used).
 COLOUR_CONFLICT_SIGMA = 3.0
+#: Longest reason text echoed per spectral type in ``note`` (characters); a
+#: 50 KB "type" would otherwise be copied into every note that quotes it.
+NOTE_ECHO_MAX = 200
 COLOUR_RANGE = (-3.0, 15.0)
 CHUNK = 100_000
 _P, _DEP = chain_matrices()
@@ -238,6 +241,15 @@ def _observable_columns(frame: pd.DataFrame):
     return out
 
 
+def _shorten_details(details):
+    """Cut per-type reasons (which quote the type) to :data:`NOTE_ECHO_MAX` characters."""
+    out = np.asarray(details, dtype=object).copy()
+    for i, d in enumerate(out):  # once per distinct type, not per row
+        if isinstance(d, str) and len(d) > NOTE_ECHO_MAX:
+            out[i] = d[:NOTE_ECHO_MAX] + f"... [{len(d)} characters]"
+    return out
+
+
 def prepare_observables(frame_in: pd.DataFrame, opts: EstimateOptions) -> PreparedInput:
     """Read photometry and spectral types exactly as :func:`estimate` does.
 
@@ -315,6 +327,7 @@ def prepare_observables(frame_in: pd.DataFrame, opts: EstimateOptions) -> Prepar
     flags |= np.where(defaulted != 0, int(Flag.ERROR_DEFAULTED), 0)
     codes, uniques = pd.factorize(frame["sptype"], use_na_sentinel=True)
     parsed = parse_sptypes(list(uniques) + [None])
+    parsed["detail"] = _shorten_details(parsed["detail"].to_numpy(object))
     codes = np.where(codes < 0, len(uniques), codes)
     L = np.stack([row for _, row in specs])
     return PreparedInput(frame, Observables(y, sig, L), [n for n, _ in specs], flags, rejected,

@@ -559,15 +559,12 @@ def publish(tmp, path, *, overwrite=False, what="output") -> None:
             try:
                 os.link(tmp, path)
             except FileExistsError:
-                raise ValueError(f"{what} {path} was created by another process while this one was "
-                                 "computing; nothing was written; choose another name or use "
-                                 "--overwrite") from None
+                raise ValueError(_raced(what, path)) from None
             except OSError:  # file systems without hard links
                 try:
                     fd = os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, _new_file_mode())
                 except FileExistsError:
-                    raise ValueError(f"{what} {path} was created by another process while this one "
-                                     "was computing; nothing was written") from None
+                    raise ValueError(_raced(what, path)) from None
                 os.close(fd)
                 os.replace(tmp, path)
             return
@@ -575,12 +572,17 @@ def publish(tmp, path, *, overwrite=False, what="output") -> None:
             raise ValueError(f"{what} {path} is {'a symbolic link' if stat.S_ISLNK(st.st_mode) else _kind_of(st.st_mode)}; "
                              "refusing to replace it; choose another name")
         if not overwrite:
-            raise ValueError(f"{what} {path} exists; choose another name or allow overwriting (--overwrite)")
+            raise ValueError(_raced(what, path))
         os.chmod(tmp, stat.S_IMODE(st.st_mode))
         os.replace(tmp, path)
     finally:
         if os.path.lexists(tmp):
             os.remove(tmp)
+
+
+def _raced(what, path) -> str:
+    return (f"{what} {path} was created by another process while this one was computing; nothing "
+            "was written; choose another name or use --overwrite")
 
 
 class Terminated(BaseException):
@@ -661,6 +663,9 @@ def _text_cells(values: np.ndarray, max_len):
             continue
         if isinstance(v, (bytes, np.bytes_)):
             v = bytes(v).decode("utf-8", "replace")
+        elif isinstance(v, (list, tuple, dict, set, np.ndarray)):
+            out[i] = v  # nested values: kept for formats that hold them (Parquet)
+            continue
         elif not isinstance(v, str):
             v = str(v)
         if max_len is not None and len(v) > max_len:
@@ -785,8 +790,38 @@ def _write_parquet(frame, tmp, meta) -> None:
     extra = {b"specpar": text.encode(),
              # pandas >= 2.1 restores DataFrame.attrs from this key
              b"PANDAS_ATTRS": json.dumps({"specpar": meta}, default=str).encode()}
+    extra.update(_astropy_parquet_header(frame, meta))
     arrow = arrow.replace_schema_metadata({**(arrow.schema.metadata or {}), **extra})
     pq.write_table(arrow, tmp)
+
+
+def _astropy_parquet_header(frame, meta) -> dict:
+    """The key-value metadata astropy's Parquet reader looks for (``table_meta_yaml``
+    and ``table::len::<name>``), so ``Table.read(path).meta['specpar']`` works.
+    Left out when a column is not a plain number or text column."""
+    from astropy.table import meta as table_meta
+    cols, lens = {}, {}
+    for name in frame.columns:
+        s = frame[name]
+        if s.dtype.kind == "O":
+            vals = [v for v in s if v is not None]
+            if not all(isinstance(v, str) for v in vals):
+                return {}
+            cols[name] = Column(np.array([], dtype="U1"))
+            lens[name] = max((len(v) for v in vals), default=1) or 1
+        elif s.dtype.kind in "fiub":
+            cols[name] = Column(np.array([], dtype=s.dtype))
+        else:
+            return {}
+    empty = Table(cols)
+    empty.meta["specpar"] = json.loads(json.dumps(meta, default=str))
+    try:
+        header = "\n".join(table_meta.get_yaml_from_table(empty))
+    except Exception:  # metadata astropy cannot represent: leave its header out
+        return {}
+    out = {b"table_meta_yaml": header.encode()}
+    out.update({f"table::len::{k}".encode(): str(v).encode() for k, v in lens.items()})
+    return out
 
 
 def _for_astropy(source, fmt, meta, units) -> Table:

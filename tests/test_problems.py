@@ -152,7 +152,8 @@ def test_types_and_classes_are_respected():
 def test_cli_problems(tmp_path, capsys):
     args = ["problems", "--seed", "314159", "--n", "4", "--level", "full", "--out-dir", str(tmp_path)]
     assert main(args) == 0
-    written = sorted(p.name for p in tmp_path.iterdir())
+    # (CSV files have their provenance sidecar <name>.specpar.json beside them)
+    written = sorted(p.name for p in tmp_path.iterdir() if not p.name.endswith(".specpar.json"))
     assert len(written) == 5 and all(n.startswith("lab-") for n in written)
     assert "lab-" in capsys.readouterr().out
     assert main(args) == 1  # files exist: refuse, one line on stderr

@@ -655,6 +655,21 @@ def _check_path_only(path, inputs, overwrite, what):
 
 def _text_cells(values: np.ndarray, max_len):
     """Object array of text: missing -> None, bytes decoded, long cells cut."""
+    values = np.asarray(values, dtype=object)
+    if pd.api.types.infer_dtype(values, skipna=True) in ("string", "empty"):
+        # fast path (vectorised): only text and missing cells
+        ser = pd.Series(values, dtype=object)
+        miss = ser.isna().to_numpy()
+        out = values.copy()
+        out[miss] = None
+        cut = 0
+        if max_len is not None:
+            lengths = ser.str.len().to_numpy(dtype=float)
+            long = ~miss & (lengths > max_len)
+            cut = int(long.sum())
+            if cut:
+                out[long] = ser[long].str[:max_len].to_numpy(dtype=object)
+        return out, cut
     out = np.empty(len(values), dtype=object)
     cut = 0
     for i, v in enumerate(values):
@@ -804,11 +819,11 @@ def _astropy_parquet_header(frame, meta) -> dict:
     for name in frame.columns:
         s = frame[name]
         if s.dtype.kind == "O":
-            vals = [v for v in s if v is not None]
-            if not all(isinstance(v, str) for v in vals):
+            if pd.api.types.infer_dtype(s, skipna=True) not in ("string", "empty"):
                 return {}
             cols[name] = Column(np.array([], dtype="U1"))
-            lens[name] = max((len(v) for v in vals), default=1) or 1
+            longest = s.str.len().max()
+            lens[name] = int(longest) if pd.notna(longest) and longest > 0 else 1
         elif s.dtype.kind in "fiub":
             cols[name] = Column(np.array([], dtype=s.dtype))
         else:
@@ -834,8 +849,9 @@ def _for_astropy(source, fmt, meta, units) -> Table:
                 cols[name] = MaskedColumn(data, mask=miss) if miss.any() else Column(data)
             elif fmt == "ecsv":
                 longest = max((len(v) for v in vals if v is not None), default=0)
+                # the plain form loses line breaks and leading/trailing blanks
                 plain = longest <= _ECSV_FIXED_WIDTH_MAX and not any(
-                    v is not None and ("\n" in v or "\r" in v) for v in vals)
+                    v is not None and ("\n" in v or "\r" in v or v != v.strip()) for v in vals)
                 if plain:
                     data = np.array(["" if v is None else v for v in vals], dtype=str)
                     cols[name] = MaskedColumn(data, mask=miss) if miss.any() else Column(data)

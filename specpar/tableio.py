@@ -235,7 +235,9 @@ def _read_delimited(path: Path, fmt: str) -> tuple[pd.DataFrame, list]:
         raise ValueError(f"{path} holds no columns")
     header = body.split("\n", 1)[0]
     sep = _sniff_separator(header, fmt)
-    options = dict(keep_default_na=False, na_values=[""], skip_blank_lines=True, comment=None)
+    # read as text, then type the columns (see _type_columns): ids such as 007 stay text
+    options = dict(keep_default_na=False, na_values=[""], skip_blank_lines=True, comment=None,
+                   dtype=object)
     if sep is None:
         names = header.split()
         reader = lambda: pd.read_csv(io.StringIO(body), sep=r"\s+", **options)  # noqa: E731
@@ -243,7 +245,10 @@ def _read_delimited(path: Path, fmt: str) -> tuple[pd.DataFrame, list]:
     else:
         rows = csv.reader(io.StringIO(body), delimiter=sep)
         names = next(rows)
-        records = sum(1 for r in rows if any(cell != "" for cell in r) or len(r) > 1)
+        if '"' in body:  # quoted cells may hold line breaks: count records properly
+            records = sum(1 for r in rows if len(r) > 1 or (r and r[0].strip()))
+        else:  # one record per line that is not blank (pandas skips blank lines)
+            records = sum(1 for ln in body.split("\n") if ln.strip()) - 1
         reader = lambda: pd.read_csv(io.StringIO(body), sep=sep, **options)  # noqa: E731
     _refuse_duplicates(names, str(path))
     try:
@@ -253,10 +258,50 @@ def _read_delimited(path: Path, fmt: str) -> tuple[pd.DataFrame, list]:
                          "the header (quote text that holds the separator)") from None
     except Exception as exc:
         raise ValueError(f"cannot read {path} as {fmt}: {exc}") from None
+    frame = _type_columns(frame)
     if records is not None and records != len(frame):
         raise ValueError(f"{path}: read {len(frame)} rows but the file has {records} data records; "
                          "check the quoting of text cells")
     return frame, meta
+
+
+#: Cells that look like identifiers, not numbers: leading zeros (007, 0042) or more
+#: digits than a double keeps (16 or more).
+_IDENTIFIER_LIKE = r"^\s*[+-]?(0\d|\d{16,}\s*$)"
+
+
+def _type_columns(frame: pd.DataFrame) -> pd.DataFrame:
+    """Turn text columns whose every cell is a number into numbers, losslessly.
+
+    A column stays text if any cell is not a number, has leading zeros (``007``)
+    or more digits than a double keeps. Integers stay integers unless a cell is
+    missing. Text cells are kept exactly (blanks included).
+    """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    for c in frame.columns:
+        s = frame[c]
+        given = s.dropna()
+        if given.empty:
+            frame[c] = np.full(len(s), np.nan)
+            continue
+        text = pd.Series(s.to_numpy(dtype=object), index=s.index, dtype=object)
+        try:
+            num = pd.to_numeric(given)  # (surrounding blanks allowed; fails fast on text)
+        except (ValueError, TypeError):
+            frame[c] = text
+            continue
+        arr = pa.array(given.to_numpy(dtype=object), type=pa.string())
+        if pc.any(pc.match_substring_regex(arr, _IDENTIFIER_LIKE)).as_py():
+            frame[c] = text
+            continue
+        if num.dtype.kind in "iu" and len(given) == len(s):
+            frame[c] = num.to_numpy()
+        else:
+            out = np.full(len(s), np.nan)
+            out[s.notna().to_numpy()] = num.to_numpy(dtype=float)
+            frame[c] = out
+    return frame
 
 
 def _frame_to_table(frame: pd.DataFrame, meta=None) -> Table:

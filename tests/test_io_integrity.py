@@ -505,3 +505,16 @@ def test_check_output_api():
     with pytest.raises(ValueError, match="standard output"):
         _tio('check_output')("-", "parquet")
     assert _tio('check_output')("-") == "csv"
+
+
+def test_identifiers_with_leading_zeros_stay_text(capsys, tmp_path):
+    # "nothing lost": 007 and a 19-digit id are not numbers to be rewritten as 7 or 1.23e18
+    src = _write(tmp_path / "z.csv", "id,sptype,B,V,n\n007,K0III,11.6,10.5,1\n"
+                                     "1234567890123456789,G2V,10.6, 10.0 ,2\n")
+    t = read_table(src)
+    assert list(t["id"]) == ["007", "1234567890123456789"]
+    assert t["V"].dtype.kind == "f" and t["n"].dtype.kind == "i"
+    code, _, err = run(capsys, "estimate", src, "-o", tmp_path / "o.csv", "--quiet")
+    assert code == 0, err
+    assert [ln.split(",")[0] for ln in (tmp_path / "o.csv").read_text().splitlines()[1:]] == \
+        ["007", "1234567890123456789"]

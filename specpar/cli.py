@@ -20,7 +20,9 @@ input columns:
   B-V, U-B, V-Ic... colours as catalogues give them (with e_B-V ...), used where
                     the two magnitudes are not both present
   other columns     carried through unchanged
-  Use --col OURS=YOURS when your names differ, e.g. --col V=Vmag --col sptype=SpT.
+  Catalogue spellings are recognised (Vmag, e_Vmag, SpType, B-V, BmV, Jmag, Plx,
+  parallax, parallax_error ...; ambiguous ones are refused). Use --col OURS=YOURS
+  for other names, e.g. --col V=mag_v --col sptype=class_mk.
 
 output: every input row, in order, plus dist_pc, dist_lo_pc, dist_hi_pc (16th/84th
 percentiles), dm, e_dm, ebv, e_ebv, av, mv, plx_phot_mas, flags, flag_codes, note...

@@ -835,9 +835,11 @@ def _units(table) -> dict:
 
 
 def _write_delimited(frame, out, fmt, escape) -> bool:
+    """CSV (or tab-separated text) with CRLF line ends as RFC 4180 has them, so that
+    a cell holding a bare carriage return is quoted too."""
     sep = "," if fmt == "csv" else "\t"
     escaped = _escape_formulas(frame) if escape else False
-    frame.to_csv(out, sep=sep, index=False, na_rep="", lineterminator="\n", quoting=csv.QUOTE_MINIMAL,
+    frame.to_csv(out, sep=sep, index=False, na_rep="", lineterminator="\r\n", quoting=csv.QUOTE_MINIMAL,
                  float_format=None)
     return escaped
 
@@ -894,9 +896,10 @@ def _for_astropy(source, fmt, meta, units) -> Table:
                 cols[name] = MaskedColumn(data, mask=miss) if miss.any() else Column(data)
             elif fmt == "ecsv":
                 longest = max((len(v) for v in vals if v is not None), default=0)
-                # the plain form loses line breaks and leading/trailing blanks
+                # the plain form loses line breaks (any that str.splitlines knows) and
+                # blanks at either end
                 plain = longest <= _ECSV_FIXED_WIDTH_MAX and not any(
-                    v is not None and ("\n" in v or "\r" in v or v != v.strip()) for v in vals)
+                    v is not None and (v != v.strip() or len(v.splitlines()) > 1) for v in pd.unique(vals))
                 if plain:
                     data = np.array(["" if v is None else v for v in vals], dtype=str)
                     cols[name] = MaskedColumn(data, mask=miss) if miss.any() else Column(data)

@@ -201,32 +201,43 @@ def resolve_columns(frame: pd.DataFrame, columns=None, *, recognise=True):
         s, ts = next(iter(twice.items()))
         raise ValueError(f"column {s!r} is mapped to {' and '.join(ts)}; map each column once")
     mapping = {t: s for t, s in columns.items() if t != s}
-    # a mapped band/colour brings its error column along
-    lower = {n.lower(): n for n in names}
-    for t, s in list(mapping.items()):
-        et = f"e_{t}"
-        if t.startswith("e_") or et in columns or et in present or t in ("sptype", "pmode", "period_d"):
-            continue
-        if t == "plx" and "e_plx" in present:
-            continue
-        found = [lower[e] for e in _error_spellings(s) if e in lower and lower[e] not in by_source]
-        if len(found) == 1:
-            mapping[et] = found[0]
-    if recognise:
-        used = set(mapping.values())
-        taken = set(mapping)
+    if recognise:  # values first; each error column is then found from its value's spelling
+        used = set(mapping.values()) | set(columns.values())
         lower_names = {n.lower() for n in names}
         for target, spellings in _alias_table(lower_names).items():
-            if target in taken or target in present:
+            if target.startswith("e_") or target in mapping or target in present:
                 continue
-            hits = [n for n in names if n not in used and n not in columns.values()
-                    and not _is_target(n) and any(_matches(sp, n) for sp in spellings)]
+            hits = [n for n in names if n not in used and not _is_target(n)
+                    and any(_matches(sp, n) for sp in spellings)]
             if len(hits) > 1:
                 raise ValueError(f"several columns could be {target}: {', '.join(map(repr, hits))}; "
                                  f"choose one with --col {target}=NAME (Python: columns={{'{target}': NAME}})")
             if hits:
                 mapping[target] = hits[0]
                 used.add(hits[0])
+    # a band, colour or parallax brings its error column along, spelled after the
+    # column actually used (Vmag -> e_Vmag, Vmag_err ...; parallax -> parallax_error)
+    used = set(mapping.values()) | set(columns.values())
+    lower = {}
+    for n in names:
+        lower.setdefault(n.lower(), []).append(n)
+    for t in [t for t in list(mapping) + [n for n in names if _is_target(n)] if not t.startswith("e_")]:
+        if t in ("sptype", "pmode", "period_d"):
+            continue
+        et = f"e_{t}"
+        if et in mapping or et in present or et in columns:
+            continue
+        src = mapping.get(t, t)
+        if src == t and not recognise:
+            continue
+        found = [n for e in _error_spellings(src) for n in lower.get(e, []) if n not in used]
+        found = list(dict.fromkeys(found))
+        if len(found) > 1:
+            raise ValueError(f"several columns could be the error of {src} ({et}): "
+                             f"{', '.join(map(repr, found))}; choose one with --col {et}=NAME")
+        if found:
+            mapping[et] = found[0]
+            used.add(found[0])
     # result names must be unique: a target that exists and is not itself mapped away
     sources = set(mapping.values())
     clash = [t for t in mapping if t in present and t not in sources]

@@ -534,3 +534,14 @@ def test_every_line_break_round_trips(tmp_path, ext):
         texts = [t.rstrip() for t in texts]
         ids = [t.rstrip() for t in ids]
     assert ids == texts
+
+
+def test_error_column_follows_the_value_column_used():
+    # V is the input's own; e_Vmag belongs to Vmag, not to V
+    df = pd.DataFrame({"sptype": ["K0 III"], "V": [10.5], "Vmag": [10.6], "e_Vmag": [0.3],
+                       "Bmag": [11.6], "Bmag_err": [0.02], "e_Bmag": [0.03]})
+    with pytest.raises(ValueError, match="'Bmag_err', 'e_Bmag'|'e_Bmag', 'Bmag_err'"):
+        resolve_columns(df)
+    frame, mapping = resolve_columns(df.drop(columns="Bmag_err"))
+    assert mapping == {"B": "Bmag", "e_B": "e_Bmag"}
+    assert "e_V" not in frame.columns

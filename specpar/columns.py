@@ -141,9 +141,11 @@ def _check_kind(frame, target, source) -> None:
     if _numeric_target(target):
         if kind in "fiub":
             return
+        if pd.to_numeric(col, errors="coerce").notna().any():
+            return  # some numbers: the rest are flagged row by row
         text = col.dropna()
         text = text[text.map(lambda v: str(v).strip() not in ("", "--", "nan", "NaN"))]
-        if len(text) and pd.to_numeric(text.map(lambda v: str(v).strip()), errors="coerce").notna().sum() == 0:
+        if len(text):
             raise ValueError(f"column {source!r} given for {target} holds text (e.g. {str(text.iloc[0])[:40]!r}), "
                              f"not numbers; map {target} to a numeric column")
     elif target == "sptype" and kind in "fiub" and col.notna().any():

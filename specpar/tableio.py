@@ -468,6 +468,15 @@ def check_output(path, fmt=None, *, inputs=(), overwrite=False, what="output") -
         if same or Path(os.path.abspath(inp)) == Path(os.path.abspath(path)):
             raise ValueError(f"refusing to write the {what} over the input file {inp}; choose another "
                              "output name")
+    if fmt in ("csv", "text"):  # the provenance sidecar is replaced too: only a regular file
+        try:
+            side = os.lstat(sidecar_path(path))
+        except FileNotFoundError:
+            side = None
+        if side is not None and not stat.S_ISREG(side.st_mode):
+            raise ValueError(f"{sidecar_path(path)} (the metadata file written beside a {fmt} output) is "
+                             f"{'a symbolic link' if stat.S_ISLNK(side.st_mode) else _kind_of(side.st_mode)}; "
+                             "refusing to replace it; choose another output name")
     try:
         st = os.lstat(path)
     except FileNotFoundError:

@@ -545,3 +545,11 @@ def test_error_column_follows_the_value_column_used():
     frame, mapping = resolve_columns(df.drop(columns="Bmag_err"))
     assert mapping == {"B": "Bmag", "e_B": "e_Bmag"}
     assert "e_V" not in frame.columns
+
+
+def test_sidecar_that_is_a_symlink_is_refused_up_front(capsys, stars, tmp_path):
+    target = _write(tmp_path / "elsewhere.json", "{}")
+    (tmp_path / "o.csv.specpar.json").symlink_to(target)
+    code, _, err = run(capsys, "estimate", stars, "-o", tmp_path / "o.csv")
+    assert "symbolic link" in one_line_error(code, err)
+    assert not (tmp_path / "o.csv").exists() and target.read_text() == "{}"

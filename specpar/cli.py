@@ -102,7 +102,7 @@ def _cmd_estimate(args):
     if args.max_field_length is not None and args.max_field_length < 1:
         raise ValueError(f"--max-field-length must be >= 1 character, got {args.max_field_length}")
     table = read_table(args.input, args.in_format, hdu=args.hdu)
-    check_columns_writable(table, fmt)
+    check_columns_writable(table, fmt, args.max_field_length)
     out = estimate(
         table, law=args.law, rv=args.rv, sigma_rv=args.sigma_rv, fit_rv=args.fit_rv,
         method="mc" if args.mc else "analytic", n_draws=args.mc or 1000, seed=args.seed,

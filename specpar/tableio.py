@@ -503,6 +503,8 @@ def _unwritable_kind(series) -> str | None:
         return None
     if kind != "O":
         return None
+    if pd.api.types.infer_dtype(series, skipna=True) in ("string", "empty"):
+        return None  # (fast path: plain text)
     for v in series:
         if isinstance(v, (list, tuple, dict, set, np.ndarray)):
             return f"nested values ({type(v).__name__})"
@@ -514,11 +516,18 @@ def _unwritable_kind(series) -> str | None:
     return None
 
 
-def check_columns_writable(table, fmt) -> None:
+#: Largest fixed-width text column written to FITS (bytes = rows x longest cell);
+#: beyond it the write would need that much memory and disk for mostly padding.
+FITS_TEXT_BYTES_MAX = 512 * 1024 ** 2
+
+
+def check_columns_writable(table, fmt, max_field_length=None) -> None:
     """Refuse, before computing, columns the output format cannot hold.
 
     Nested (list/struct), timedelta and binary columns are carried through to
-    Parquet, which holds them; the flat formats cannot.
+    Parquet, which holds them; the flat formats cannot. FITS stores text at
+    fixed width: a column needing more than :data:`FITS_TEXT_BYTES_MAX` is
+    refused with the advice to cut it (``max_field_length``) or use another format.
     """
     if fmt == "parquet":
         return
@@ -539,6 +548,20 @@ def check_columns_writable(table, fmt) -> None:
         listing = "; ".join(f"{c!r} holds {k}" for c, k in bad)
         raise ValueError(f"cannot write these columns as {fmt}: {listing}; write Parquet "
                          "(.parquet) instead, or drop or convert them")
+    if fmt == "fits":
+        for c, ser in items:
+            if ser.dtype.kind == "O":
+                longest = ser.map(lambda v: len(v) if isinstance(v, (str, bytes)) else 0).max()
+            elif ser.dtype.kind in "SU":
+                longest = ser.dtype.itemsize // (4 if ser.dtype.kind == "U" else 1)
+            else:
+                continue
+            longest = min(int(longest or 0), max_field_length or np.inf)
+            if longest * len(ser) > FITS_TEXT_BYTES_MAX:
+                raise ValueError(
+                    f"column {c!r} would take {longest * len(ser) / 1024 ** 2:.0f} MiB as fixed-width FITS text "
+                    f"({len(ser)} rows x {longest} characters, the longest cell); cut text with "
+                    "--max-field-length N (Python: max_field_length=N), or write ECSV, VOTable or Parquet")
 
 
 # ----------------------------------------------------------------------------- publishing
@@ -966,7 +989,7 @@ def write_table(table, path, fmt=None, *, inputs=(), overwrite=False, max_field_
     if max_field_length is not None and not (isinstance(max_field_length, (int, np.integer))
                                              and max_field_length >= 1):
         raise ValueError(f"max_field_length must be a whole number >= 1, got {max_field_length!r}")
-    check_columns_writable(table, fmt)
+    check_columns_writable(table, fmt, max_field_length)
     meta = dict((table.attrs if isinstance(table, pd.DataFrame) else table.meta).get("specpar", {}))
     units = _units(table)
     source, cut = _prepared_columns(table, max_field_length)

@@ -553,3 +553,16 @@ def test_sidecar_that_is_a_symlink_is_refused_up_front(capsys, stars, tmp_path):
     code, _, err = run(capsys, "estimate", stars, "-o", tmp_path / "o.csv")
     assert "symbolic link" in one_line_error(code, err)
     assert not (tmp_path / "o.csv").exists() and target.read_text() == "{}"
+
+
+def test_fits_refuses_huge_fixed_width_text_before_computing(capsys, tmp_path, monkeypatch):
+    # 100 KB in one cell of 10,000 rows would be 1 GB of FITS padding
+    n = 10_000
+    df = pd.DataFrame({"id": [f"W{i}" for i in range(n)], "sptype": ["K0 III"] * n, "V": np.full(n, 10.0)})
+    df.loc[3, "sptype"] = "K" * 100_000
+    src = tmp_path / "w.parquet"
+    df.to_parquet(src)
+    _no_compute(monkeypatch)
+    code, _, err = run(capsys, "estimate", src, "-o", tmp_path / "w.fits")
+    line = one_line_error(code, err)
+    assert "'sptype'" in line and "--max-field-length" in line

@@ -240,6 +240,12 @@ def _read_delimited(path: Path, fmt: str) -> tuple[pd.DataFrame, list]:
                    dtype=object)
     if sep is None:
         names = header.split()
+        _refuse_duplicates(names, str(path))
+        if '"' not in body:
+            lines = [ln.rstrip("\r") for ln in body.split("\n")[1:] if ln.strip()]
+            if any(len(ln.split()) != len(names) for ln in lines):
+                # not one field per header name: read as fixed-width columns under the names
+                return _type_columns(_read_fixed_width(header.rstrip("\r"), lines, path)), meta
         reader = lambda: pd.read_csv(io.StringIO(body), sep=r"\s+", **options)  # noqa: E731
         records = None  # not counted: quoted blanks make the line count ambiguous
     else:
@@ -302,6 +308,25 @@ def _type_columns(frame: pd.DataFrame) -> pd.DataFrame:
             out[s.notna().to_numpy()] = num.to_numpy(dtype=float)
             frame[c] = out
     return frame
+
+
+def _read_fixed_width(header: str, lines, path) -> pd.DataFrame:
+    """Fixed-width text: each column starts where its name starts in the header
+    line and ends where the next name starts. Every data line must have a blank
+    just before each of those positions (or end there); otherwise one clear error."""
+    starts = [m.start() for m in re.finditer(r"\S+", header)]
+    names = header.split()
+    for i, ln in enumerate(lines, start=1):
+        for name, b in zip(names[1:], starts[1:]):
+            if b - 1 < len(ln) and not ln[b - 1].isspace():
+                raise ValueError(
+                    f"{path}: data line {i} has not one field per header name, and is not aligned in fixed-"
+                    f"width columns either (column {name!r} starts at character {b + 1} of the header); "
+                    "separate columns with tabs or commas, quote text that holds blanks, or align the "
+                    "columns under their names")
+    edges = [0] + starts[1:] + [None]
+    rows = [[(ln[a:b].strip() or None) for a, b in zip(edges[:-1], edges[1:])] for ln in lines]
+    return pd.DataFrame(rows, columns=names, dtype=object)
 
 
 def _frame_to_table(frame: pd.DataFrame, meta=None) -> Table:

@@ -566,3 +566,19 @@ def test_fits_refuses_huge_fixed_width_text_before_computing(capsys, tmp_path, m
     code, _, err = run(capsys, "estimate", src, "-o", tmp_path / "w.fits")
     line = one_line_error(code, err)
     assert "'sptype'" in line and "--max-field-length" in line
+
+
+def test_fixed_width_text_with_a_header_line(tmp_path):
+    # issue 11.10: aligned columns whose cells hold blanks ('K0 III') and an empty cell
+    src = _write(tmp_path / "fw.txt",
+                 "id       sptype    B       V\n"
+                 "FW-1     K0 III    11.60   10.50\n"
+                 "FW-2     G2 V              10.00\n"
+                 "FW-3     A0 V      9.10    9.05\n")
+    t = read_table(src)
+    assert list(t["sptype"]) == ["K0 III", "G2 V", "A0 V"]
+    assert np.isnan(t["B"][1]) and list(t["V"]) == [10.5, 10.0, 9.05]
+    # not aligned and not one field per name: one clear error, no guessing
+    bad = _write(tmp_path / "bad.txt", "id sptype V\nFW-1 K0 III 10.5\n")
+    with pytest.raises(ValueError, match="fixed-width"):
+        read_table(bad)

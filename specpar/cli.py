@@ -7,6 +7,7 @@ import sys
 from . import __version__
 from .bands import BAND_NAMES
 from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
+from .estimate import MAX_MAG_ERROR
 from .tableio import FORMATS
 
 __all__ = ["main"]
@@ -19,7 +20,9 @@ input columns:
   B-V, U-B, V-Ic... colours as catalogues give them (with e_B-V ...), used where
                     the two magnitudes are not both present
   other columns     carried through unchanged
-  Use --col OURS=YOURS when your names differ, e.g. --col V=Vmag --col sptype=SpT.
+  Catalogue spellings are recognised (Vmag, e_Vmag, SpType, B-V, BmV, Jmag, Plx,
+  parallax, parallax_error ...; ambiguous ones are refused). Use --col OURS=YOURS
+  for other names, e.g. --col V=mag_v --col sptype=class_mk.
 
 output: every input row, in order, plus dist_pc, dist_lo_pc, dist_hi_pc (16th/84th
 percentiles), dm, e_dm, ebv, e_ebv, av, mv, plx_phot_mas, flags, flag_codes, note...
@@ -37,18 +40,19 @@ class _Parser(argparse.ArgumentParser):
 
 
 def column_map(pairs):
-    out = {}
-    for p in pairs or ():
-        if "=" not in p:
-            raise ValueError(f"--col takes OURS=YOURS (e.g. V=Vmag), got {p!r}")
-        ours, theirs = (s.strip() for s in p.split("=", 1))
-        out[ours] = theirs
-    return out
+    """``--col`` pairs to a mapping (see :func:`specpar.columns.column_map`)."""
+    from .columns import column_map as _column_map
+    return _column_map(pairs)
 
 
 def _add_estimate_options(p):
-    p.add_argument("input", help="table of stars (CSV, ECSV, FITS, VOTable or Parquet)")
-    p.add_argument("-o", "--output", required=True, help="output table; format from its extension")
+    p.add_argument("input", help="table of stars (CSV, text, ECSV, FITS, VOTable or Parquet; .gz allowed "
+                                 "for CSV/text)")
+    p.add_argument("-o", "--output", required=True,
+                   help="output table; format from its extension; '-' writes CSV (or --out-format) to "
+                        "standard output")
+    p.add_argument("--hdu", metavar="N|NAME", help="FITS: the table HDU to read when the file holds several "
+                                                    "(VOTable: the table index or ID)")
     p.add_argument("--in-format", choices=list(FORMATS), help="input format if the extension does not tell")
     p.add_argument("--out-format", choices=list(FORMATS), help="output format if the extension does not tell")
     p.add_argument("--col", action="append", metavar="OURS=YOURS",
@@ -64,6 +68,12 @@ def _add_estimate_options(p):
     p.add_argument("--seed", type=int, default=0, help="seed for --mc (default 0)")
     p.add_argument("--default-error", type=float, default=0.05,
                    help="error in mag assumed where a magnitude has none (flagged; default 0.05)")
+    p.add_argument("--max-error", type=float, default=MAX_MAG_ERROR, metavar="MAG",
+                   help="a magnitude whose error is above MAG (or zero, negative, infinite: catalogue "
+                        f"sentinels such as 9.99) is not used (flagged; default {MAX_MAG_ERROR:g})")
+    p.add_argument("--max-field-length", type=int, default=None, metavar="N",
+                   help="cut text cells of the output to N characters (counted in the metadata; "
+                        "default: no cut)")
     p.add_argument("--calibration", action="append", metavar="FILE",
                    help="your own calibration table (ECSV, same format as the shipped ones); "
                         "replaces the shipped table of its luminosity class (repeatable)")
@@ -83,23 +93,34 @@ def _add_estimate_options(p):
 
 
 def _cmd_estimate(args):
+    from .columns import describe_mapping
     from .estimate import estimate
-    from .tableio import read_table, write_table
-    table = read_table(args.input, args.in_format)
+    from .tableio import check_columns_writable, check_output, read_table, write_table
+    inputs = [args.input, *(args.calibration or ())]
+    # everything about the output is checked before reading and computing
+    fmt = check_output(args.output, args.out_format, inputs=inputs, overwrite=args.overwrite)
+    if args.max_field_length is not None and args.max_field_length < 1:
+        raise ValueError(f"--max-field-length must be >= 1 character, got {args.max_field_length}")
+    table = read_table(args.input, args.in_format, hdu=args.hdu)
+    check_columns_writable(table, fmt, args.max_field_length)
     out = estimate(
         table, law=args.law, rv=args.rv, sigma_rv=args.sigma_rv, fit_rv=args.fit_rv,
         method="mc" if args.mc else "analytic", n_draws=args.mc or 1000, seed=args.seed,
         default_error=args.default_error, calibrations=tuple(args.calibration or ()),
         columns=column_map(args.col), progress=not args.quiet, explain=args.explain,
         plx_offset=args.plx_offset, plx_error_scale=args.plx_error_scale, tension=args.tension,
-        length_scale_pc=args.length_scale)
-    write_table(out, args.output, args.out_format, inputs=[args.input], overwrite=args.overwrite)
+        length_scale_pc=args.length_scale, max_error=args.max_error)
+    write_table(out, args.output, fmt, inputs=inputs, overwrite=args.overwrite,
+                max_field_length=args.max_field_length)
     if not args.quiet:
         n = len(out)
         ok = int((out["flags"] & 256 == 0).sum())
         flagged = int((out["flags"] != 0).sum())
+        meta = (out.meta if hasattr(out, "colnames") else out.attrs).get("specpar", {})
+        mapping = describe_mapping(meta.get("column_mapping") or {})
+        stream = sys.stderr if args.output == "-" else sys.stdout
         print(f"specpar: {n} rows -> {args.output}: {ok} with a distance, {flagged} flagged "
-              f"(see the 'note' column)")
+              f"(see the 'note' column)" + (f"; columns used: {mapping}" if mapping else ""), file=stream)
     return 0
 
 
@@ -164,6 +185,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(args=None) -> int:
     """Entry point; returns the exit status."""
+    from .tableio import Terminated
     parser = build_parser()
     ns = parser.parse_args(args)
     if not ns.command:
@@ -178,6 +200,9 @@ def main(args=None) -> int:
     except KeyboardInterrupt:
         print("specpar: interrupted", file=sys.stderr)
         return 130
+    except Terminated:
+        print("specpar: terminated (SIGTERM); no output written, temporary file removed", file=sys.stderr)
+        return 143
 
 
 if __name__ == "__main__":

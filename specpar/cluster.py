@@ -1508,6 +1508,7 @@ def register_cli(sub):
     p.add_argument("--seed", type=int, default=0, help="seed of the bootstrap (default 0)")
     p.add_argument("--col", action="append", metavar="OURS=YOURS", help="map a column name (repeatable)")
     p.add_argument("--in-format", help="input format if the extension does not tell")
+    p.add_argument("--hdu", metavar="N|NAME", help="FITS: the table HDU to read when the file holds several (VOTable: table index or ID)")
     p.add_argument("--out-format", help="output format if the extension does not tell")
     p.add_argument("--overwrite", action="store_true", help="replace existing output files")
     p.add_argument("--quiet", action="store_true", help="print nothing on success")
@@ -1520,7 +1521,10 @@ def _cmd_cluster(args):
     for f in (args.plot, args.twocolour):
         if f and not str(f).lower().endswith((".png", ".pdf")):
             raise ValueError(f"plot file {f} must end in .png or .pdf")
-    table = read_table(args.input, args.in_format)
+    if args.output:  # checked before any computing (never over the table or the locus file)
+        from .tableio import check_output
+        check_output(args.output, args.out_format, inputs=[args.input, args.locus], overwrite=args.overwrite)
+    table = read_table(args.input, args.in_format, hdu=args.hdu)
     res = fit_cluster(
         table, law=args.law, rv=args.rv, locus=args.locus, magnitude=args.magnitude,
         bands=[b.strip() for b in args.bands.split(",")] if args.bands else None,
@@ -1531,7 +1535,7 @@ def _cmd_cluster(args):
         method="bootstrap" if args.bootstrap else "profile", n_boot=args.bootstrap or 50,
         seed=args.seed, field_model=args.field_model)
     if args.output:
-        write_table(res.members, args.output, args.out_format, inputs=[args.input],
+        write_table(res.members, args.output, args.out_format, inputs=[args.input, args.locus],
                     overwrite=args.overwrite)
     from .clusterplots import plot_cmd, plot_two_colour
     if args.plot:

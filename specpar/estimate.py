@@ -35,6 +35,19 @@ __all__ = ["estimate", "EstimateOptions", "OUTPUT_COLUMNS"]
 DEFAULT_MAG_ERROR = 0.05
 #: Plausible ranges; values outside are rejected as input errors.
 MAG_RANGE = (-5.0, 35.0)
+#: Largest photometric error (mag) taken as a measurement. Catalogues write
+#: sentinels such as 9.99 or 99 for "no error"; an error above 1 mag also means
+#: the magnitude itself is no measurement worth weighting (a 1-mag error spans a
+#: factor 2.5 in flux). A magnitude whose error is above this, zero, negative,
+#: infinite or not a number is not used (flagged); only a missing error gets
+#: the default. Common practice for catalogue photometry.
+MAX_MAG_ERROR = 1.0
+#: A colour column that differs from the colour of its two magnitudes in the
+#: same row by more than this many combined sigmas is noted (the magnitudes are used).
+COLOUR_CONFLICT_SIGMA = 3.0
+#: Longest reason text echoed per spectral type in ``note`` (characters); a
+#: 50 KB "type" would otherwise be copied into every note that quotes it.
+NOTE_ECHO_MAX = 200
 COLOUR_RANGE = (-3.0, 15.0)
 CHUNK = 100_000
 _P, _DEP = chain_matrices()
@@ -130,6 +143,7 @@ class EstimateOptions:
     plx_error_scale: float = 1.0
     tension: float = 3.0
     length_scale_pc: float = 1350.0
+    max_error: float = MAX_MAG_ERROR
 
     def check(self) -> None:
         check_law(self.law, self.rv)
@@ -139,6 +153,11 @@ class EstimateOptions:
             raise ValueError(f"sigma_rv must be >= 0, got {self.sigma_rv}")
         if not (np.isfinite(self.default_error) and self.default_error > 0):
             raise ValueError(f"default_error must be > 0 mag, got {self.default_error}")
+        if not (np.isfinite(self.max_error) and self.max_error > 0):
+            raise ValueError(f"max_error must be a number of mag > 0, got {self.max_error}")
+        if self.default_error > self.max_error:
+            raise ValueError(f"default_error {self.default_error} mag is above max_error {self.max_error} mag; "
+                             "lower the default error or raise max_error")
         if not (np.isfinite(self.plx_error_scale) and self.plx_error_scale > 0):
             raise ValueError(f"plx_error_scale must be > 0, got {self.plx_error_scale}")
         if not np.isfinite(self.plx_offset):
@@ -165,6 +184,9 @@ class PreparedInput:
     defaulted: np.ndarray
     parsed: pd.DataFrame
     parse_codes: np.ndarray
+    bad_error: np.ndarray = None  # (N,) bit mask: magnitude not used, its error is unusable
+    detail: np.ndarray = None  # (N,) per-row text (e.g. conflicting colour columns)
+    mapping: dict = None  # our column name -> input column used
 
 
 def to_frame(table) -> pd.DataFrame:
@@ -226,34 +248,42 @@ def _observable_columns(frame: pd.DataFrame):
     return out
 
 
+def _shorten_details(details):
+    """Cut per-type reasons (which quote the type) to :data:`NOTE_ECHO_MAX` characters."""
+    out = np.asarray(details, dtype=object).copy()
+    for i, d in enumerate(out):  # once per distinct type, not per row
+        if isinstance(d, str) and len(d) > NOTE_ECHO_MAX:
+            out[i] = d[:NOTE_ECHO_MAX] + f"... [{len(d)} characters]"
+    return out
+
+
 def prepare_observables(frame_in: pd.DataFrame, opts: EstimateOptions) -> PreparedInput:
     """Read photometry and spectral types exactly as :func:`estimate` does.
 
     Used by the worked solutions and the cluster fit so that every part of
     specpar sees the same observables, rejections and default errors.
     """
-    rename = {theirs: ours for ours, theirs in opts.columns.items()}
-    missing = [t for t in rename if t not in frame_in.columns]
-    if missing:
-        raise ValueError(f"column(s) {', '.join(map(repr, missing))} named in the column mapping "
-                         f"are not in the input; it has {', '.join(map(str, frame_in.columns))}")
-    frame = frame_in.rename(columns=rename)
+    from .columns import resolve_columns
+    frame, mapping = resolve_columns(frame_in, opts.columns)
     N = len(frame)
     if "sptype" not in frame.columns:
         if "period_d" not in frame.columns:
             raise ValueError("the input has no 'sptype' column; name yours with columns={'sptype': ...} "
-                             "(CLI: --col sptype=YOURNAME)")
+                             f"(CLI: --col sptype=YOURNAME); the input has {', '.join(map(str, frame_in.columns))}")
         frame["sptype"] = None  # pulsating stars only: the period replaces the type
     specs = _observable_columns(frame)
     if not specs:
         raise ValueError("the input has no photometry columns; expected any of "
-                         f"{', '.join(BAND_NAMES)} or colours such as B-V (map yours with --col)")
+                         f"{', '.join(BAND_NAMES)} or colours such as B-V (map yours with --col); "
+                         f"the input has {', '.join(map(str, frame_in.columns))}")
     flags = np.zeros(N, np.int64)
     K = len(specs)
     y = np.full((N, K), np.nan)
     sig = np.full((N, K), np.nan)
     rejected = np.zeros(N, np.int64)
     defaulted = np.zeros(N, np.int64)
+    bad_error = np.zeros(N, np.int64)
+    max_error = getattr(opts, "max_error", MAX_MAG_ERROR)
     for k, (name, row) in enumerate(specs):
         vals, bad = numeric_values(frame[name])
         lo, hi = MAG_RANGE if row.sum() != 0 else COLOUR_RANGE
@@ -262,34 +292,53 @@ def prepare_observables(frame_in: pd.DataFrame, opts: EstimateOptions) -> Prepar
         vals = np.where(bad, np.nan, vals)
         ecol = f"e_{name}"
         if ecol in frame.columns:
-            errs, ebad = numeric_values(frame[ecol])
+            errs, ebad = numeric_values(frame[ecol])  # ebad: given, but not a finite number
             with np.errstate(invalid="ignore"):
-                ebad |= errs > 5.0
+                ebad |= (errs <= 0) | (errs > max_error)
+            ebad &= np.isfinite(vals)  # (only matters where the magnitude is given)
             errs = np.where(ebad, np.nan, errs)
+            vals = np.where(ebad, np.nan, vals)
         else:
             errs = np.full(N, np.nan)
+            ebad = np.zeros(N, bool)
         with np.errstate(invalid="ignore"):
             need = np.isfinite(vals) & ~(errs > 0)
         errs = np.where(need, opts.default_error, np.where(errs > 0, errs, np.nan))
         rejected |= bad.astype(np.int64) << k
+        bad_error |= ebad.astype(np.int64) << k
         defaulted |= need.astype(np.int64) << k
         y[:, k], sig[:, k] = vals, errs
     # a colour column is used only where its two magnitudes are not both measured
     mag_ok = {name: np.isfinite(y[:, k]) for k, (name, row) in enumerate(specs) if row.sum() != 0}
+    kof = {name: k for k, (name, _) in enumerate(specs)}
+    detail = np.full(N, "", dtype=object)
     for k, (name, row) in enumerate(specs):
         m = _COLOUR_RE.match(name)
         if m and m[1] in mag_ok and m[2] in mag_ok:
             both = mag_ok[m[1]] & mag_ok[m[2]]
+            k1, k2 = kof[m[1]], kof[m[2]]
+            diff = y[:, k] - (y[:, k1] - y[:, k2])
+            with np.errstate(invalid="ignore"):
+                s_comb = np.sqrt(sig[:, k] ** 2 + sig[:, k1] ** 2 + sig[:, k2] ** 2)
+                conflict = both & (np.abs(diff) > COLOUR_CONFLICT_SIGMA * s_comb)
+            if conflict.any():
+                idx = np.flatnonzero(conflict)
+                text = pd.Series([f"{name} given {y[i, k]:.3f} differs from {m[1]} - {m[2]} = "
+                                  f"{y[i, k1] - y[i, k2]:.3f} by {diff[i]:+.3f} mag "
+                                  f"({abs(diff[i]) / s_comb[i]:.1f} sigma): {m[1]} and {m[2]} used"
+                                  for i in idx], dtype=object).to_numpy()
+                detail[idx] = np.where(detail[idx] != "", detail[idx] + "; ", "") + text
             y[both, k] = np.nan
             defaulted[both] &= ~np.int64(1 << k)
-    flags |= np.where(rejected != 0, int(Flag.PHOT_REJECTED), 0)
+    flags |= np.where((rejected | bad_error) != 0, int(Flag.PHOT_REJECTED), 0)
     flags |= np.where(defaulted != 0, int(Flag.ERROR_DEFAULTED), 0)
     codes, uniques = pd.factorize(frame["sptype"], use_na_sentinel=True)
     parsed = parse_sptypes(list(uniques) + [None])
+    parsed["detail"] = _shorten_details(parsed["detail"].to_numpy(object))
     codes = np.where(codes < 0, len(uniques), codes)
     L = np.stack([row for _, row in specs])
     return PreparedInput(frame, Observables(y, sig, L), [n for n, _ in specs], flags, rejected,
-                     defaulted, parsed, codes)
+                         defaulted, parsed, codes, bad_error=bad_error, detail=detail, mapping=mapping)
 
 
 # ----------------------------------------------------------------------------- solving
@@ -464,20 +513,24 @@ def _combine_codes(*arrays) -> np.ndarray:
     return code
 
 
-def _notes(flags, detail, rejected, defaulted, obs_names):
+def _notes(flags, detail, rejected, defaulted, obs_names, bad_error=None):
     """Readable note and flag names per row.
 
     The flag sentences and band lists are built once per distinct combination
     (there are few); the per-row detail text is appended with a vectorised join.
     """
-    codes = _combine_codes(flags, rejected, defaulted)
+    bad_error = np.zeros_like(rejected) if bad_error is None else bad_error
+    codes = _combine_codes(flags, rejected, defaulted, bad_error)
     first = np.unique(codes, return_index=True)[1]
     texts, names = [], []
     for i in first:
-        f, r, x = int(flags[i]), int(rejected[i]), int(defaulted[i])
+        f, r, x, be = int(flags[i]), int(rejected[i]), int(defaulted[i]), int(bad_error[i])
         parts = [describe(f)] if f else []
         if r:
             parts.append("rejected: " + ", ".join(n for k, n in enumerate(obs_names) if r >> k & 1))
+        if be:
+            parts.append("not used, error zero, negative, not a number or above the limit "
+                         "(max_error): " + ", ".join(n for k, n in enumerate(obs_names) if be >> k & 1))
         if x:
             parts.append("default error used for: " + ", ".join(n for k, n in enumerate(obs_names) if x >> k & 1))
         texts.append("; ".join(parts))
@@ -524,7 +577,7 @@ def _metadata(opts, cals, obs_names):
 def estimate(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, sigma_rv=0.2, fit_rv=False,
              method="analytic", n_draws=1000, seed=0, default_error=DEFAULT_MAG_ERROR,
              calibrations=(), columns=None, progress=False, explain=False, plx_offset=0.0,
-             plx_error_scale=1.0, tension=3.0, length_scale_pc=1350.0):
+             plx_error_scale=1.0, tension=3.0, length_scale_pc=1350.0, max_error=MAX_MAG_ERROR):
     """Spectroscopic-parallax distances for every row of a table.
 
     Parameters
@@ -561,6 +614,11 @@ def estimate(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, sigma_rv=0.2, fit_rv=Fals
         Parallax cross-check settings, used when the input has ``plx`` and
         ``e_plx`` (mas): zero point subtracted, error inflation, |z| threshold,
         length scale of the space-density prior (pc).
+    max_error : float
+        Largest photometric error (mag) accepted (default :data:`MAX_MAG_ERROR`,
+        1 mag). A magnitude whose error is above it, zero, negative, infinite or
+        not a number (catalogue sentinels such as 9.99) is not used and the row
+        is flagged; only a missing error gets ``default_error``.
 
     Returns
     -------
@@ -578,7 +636,7 @@ def estimate(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, sigma_rv=0.2, fit_rv=Fals
                            calibrations=tuple(calibrations or ()), columns=dict(columns or {}),
                            progress=progress, explain=explain, plx_offset=plx_offset,
                            plx_error_scale=plx_error_scale, tension=tension,
-                           length_scale_pc=length_scale_pc)
+                           length_scale_pc=length_scale_pc, max_error=max_error)
     return run_estimate(table, opts)
 
 
@@ -795,7 +853,9 @@ def run_estimate(table, opts: EstimateOptions):
         results.update(extra)
         flags |= pflags
         detail = np.where(pdetail != "", np.where(detail != "", detail + "; ", "") + pdetail, detail)
-    note, codes = _notes(flags, detail, prep.rejected, prep.defaulted, prep.obs_names)
+    if prep.detail is not None:
+        detail = np.where(prep.detail != "", np.where(detail != "", detail + "; ", "") + prep.detail, detail)
+    note, codes = _notes(flags, detail, prep.rejected, prep.defaulted, prep.obs_names, prep.bad_error)
     results.update(flags=flags, flag_codes=codes, note=note)
     if opts.explain:
         R_rows, _ = coefficients_at(opts.law, rv_used)
@@ -804,6 +864,8 @@ def run_estimate(table, opts: EstimateOptions):
             results[f"M_{name}"] = u.absmag[code, b]
             results[f"A_{name}"] = np.where(nodist, np.nan, ebv * R_rows[:, b])
     meta = _metadata(opts, cals, prep.obs_names)
+    meta["column_mapping"] = dict(prep.mapping or {})
+    meta["max_error_mag"] = float(opts.max_error)
     meta["columns"] = {k: info[k][1] for k in results if k in info}
     if cep is not None:
         from .cepheid import load_pl_calibration

@@ -681,6 +681,8 @@ def plot_parallax(table, path, *, threshold=None, overwrite=False, inputs=()):
     if threshold is None:
         meta = (table.attrs if isinstance(table, pd.DataFrame) else table.meta).get("specpar", {})
         threshold = float((meta or {}).get("parallax", {}).get("plx_tension_threshold", 3.0))
+    if threshold is not None and not (np.isfinite(threshold) and threshold > 0):
+        raise ValueError(f"tension threshold must be a finite number > 0 (in sigma, e.g. 3), got {threshold}")
     fig = _draw(_plot_frame(table), threshold)
     atomic_write(path, lambda tmp: fig.savefig(tmp, format=fmt, dpi=120), inputs=inputs,
                  overwrite=overwrite, what="figure")
@@ -688,7 +690,9 @@ def plot_parallax(table, path, *, threshold=None, overwrite=False, inputs=()):
 
 def _cmd_plot(args):
     from .tableio import read_table
-    table = read_table(args.table, args.in_format)
+    if args.tension is not None and not (np.isfinite(args.tension) and args.tension > 0):
+        raise ValueError(f"--tension must be a finite number > 0 (in sigma, e.g. 3), got {args.tension}")
+    table = read_table(args.table, args.in_format, hdu=args.hdu)
     plot_parallax(table, args.output, threshold=args.tension, overwrite=args.overwrite, inputs=[args.table])
     return 0
 
@@ -703,6 +707,7 @@ def register_cli(sub) -> None:
     p.add_argument("table", help="output table of 'specpar estimate'")
     p.add_argument("-o", "--output", required=True, help="figure file, .png or .pdf")
     p.add_argument("--in-format", choices=list(FORMATS), help="table format if the extension does not tell")
+    p.add_argument("--hdu", metavar="N|NAME", help="FITS: the table HDU to read when the file holds several (VOTable: table index or ID)")
     p.add_argument("--tension", type=float, default=None, metavar="Z",
                    help="|z| threshold to draw (default: the one recorded in the table, else 3)")
     p.add_argument("--overwrite", action="store_true", help="replace the figure if it exists")

@@ -1152,7 +1152,7 @@ def write_worked(ws: WorkedSolution, path, fmt=None, *, inputs=(), overwrite=Fal
 def _cmd_worked(args) -> int:
     from .cli import column_map
     from .tableio import read_table
-    table = read_table(args.input, args.in_format)
+    table = read_table(args.input, args.in_format, hdu=args.hdu)
     ws = worked_solutions(table, decimals=args.decimals, law=args.law, rv=args.rv, sigma_rv=args.sigma_rv,
                           fit_rv=args.fit_rv, default_error=args.default_error,
                           calibrations=tuple(args.calibration or ()), columns=column_map(args.col))
@@ -1178,6 +1178,7 @@ def register_cli(sub) -> None:
                         "significant figure than this")
     p.add_argument("--title", help="page title")
     p.add_argument("--in-format", choices=list(TABLE_FORMATS), help="input format if the extension does not tell")
+    p.add_argument("--hdu", metavar="N|NAME", help="FITS: the table HDU to read when the file holds several (VOTable: table index or ID)")
     p.add_argument("--col", action="append", metavar="OURS=YOURS", help="map a column name (repeatable)")
     p.add_argument("--law", default=DEFAULT_LAW, choices=list(LAWS), help=f"extinction law (default {DEFAULT_LAW})")
     p.add_argument("--rv", type=float, default=DEFAULT_RV, help=f"R_V (default {DEFAULT_RV})")

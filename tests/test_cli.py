@@ -9,6 +9,7 @@ import os
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 from astropy.table import Table
 
@@ -58,10 +59,10 @@ def assert_clean_error(code, err):
 def _read_back(path, fmt):
     """Read an output with astropy; returns (table, specpar metadata dict or None)."""
     if fmt == "csv":
-        t = Table.read(path, format="ascii.csv", comment="#")
-        lines = [c for c in t.meta.get("comments", []) if c.startswith("specpar ")]
-        meta = {ln.split(":", 1)[0].split()[1]: json.loads(ln.split(":", 1)[1]) for ln in lines}
-        return t, meta
+        # a plain pandas.read_csv opens it; the provenance is in the sidecar <name>.specpar.json
+        t = Table.from_pandas(pd.read_csv(path))
+        side = Path(str(path) + ".specpar.json")
+        return t, json.loads(side.read_text())["specpar"] if side.exists() else None
     if fmt == "ecsv":
         t = Table.read(path, format="ascii.ecsv")
         return t, t.meta.get("specpar")
@@ -102,7 +103,10 @@ def test_estimate_writes_every_format(capsys, small_csv, ext, fmt):
     # the mapped V/J columns were used: three observables for the first star
     assert int(t["n_obs"][0]) == 3
     # nothing but the output is left in the folder (no temporary files)
-    assert sorted(p.name for p in small_csv.parent.iterdir()) == sorted([small_csv.name, out_path.name])
+    # (a CSV output has its provenance sidecar beside it)
+    extra = [out_path.name + ".specpar.json"] if fmt == "csv" else []
+    assert sorted(p.name for p in small_csv.parent.iterdir()) == sorted([small_csv.name, out_path.name,
+                                                                         *extra])
 
 
 def test_output_matches_library_and_reads_back(capsys, small_csv, tmp_path):
@@ -168,13 +172,13 @@ def test_unknown_extension(capsys, small_csv, tmp_path, which):
     src = small_csv
     dst = tmp_path / "out.ecsv"
     if which == "input":
-        src = tmp_path / "stars.dat"
+        src = tmp_path / "stars.xls"  # (.dat is read now: whitespace/tab-separated text)
         src.write_text(SMALL_CSV)
     else:
         dst = tmp_path / "out.xyz"
     code, out, err = run(capsys, "estimate", src, "-o", dst, *MAPPING, "--quiet")
     line = assert_clean_error(code, err)
-    assert ".dat" in line or ".xyz" in line
+    assert ".xls" in line or ".xyz" in line
     assert not dst.exists()
 
 

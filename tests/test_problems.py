@@ -157,8 +157,9 @@ def test_cli_problems(tmp_path, capsys):
     seed = 2 ** 70 + 314159  # long enough: no small-seed warning on stderr
     args = ["problems", "--seed", str(seed), "--n", "4", "--level", "full", "--out-dir", str(tmp_path)]
     assert main(args) == 0
-    written = sorted(p.name for p in tmp_path.iterdir())
-    assert len(written) == 6 and all(n.startswith("lab-") for n in written)  # sheet: CSV, Markdown, HTML
+    # sheet and key: CSV, Markdown, HTML each; CSV files have their provenance sidecar <name>.specpar.json
+    written = sorted(p.name for p in tmp_path.iterdir() if not p.name.endswith(".specpar.json"))
+    assert len(written) == 6 and all(n.startswith("lab-") for n in written)
     assert "lab-" in capsys.readouterr().out
     assert main(args) == 1  # files exist: refuse, one line on stderr
     err = capsys.readouterr().err

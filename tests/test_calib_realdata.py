@@ -42,3 +42,18 @@ def test_even_odd_split(stars):
     assert len(fit) + len(held) == len(stars)
     assert np.all(fit["hip"] % 2 == 0) and np.all(held["hip"] % 2 == 1)
     assert not set(fit["hip"]) & set(held["hip"])
+
+
+def test_validation_harness_on_published_dwarf_table(stars, capsys):
+    """Held-out half (odd HIP) against the shipped tables; the table is printed.
+
+    The dwarf table is Pecaut & Mamajek 2013 (via meanstars), a published source
+    independent of these stars: its B-F groups must pass the criteria of issue 9."""
+    from specpar.calibrate import format_validation, validate
+    v = validate(brightcat.test_half(stars))
+    with capsys.disabled():
+        print("\n" + format_validation(v, "held-out half (odd HIP), shipped tables"))
+    for tc in "BAF":
+        r = v[(v["lclass"] == "V") & (v["tclass"] == tc)][0]
+        assert r["n"] >= 25
+        assert abs(r["dmag_median"]) <= 0.25 and 0.55 <= r["coverage"] <= 0.82

@@ -48,9 +48,9 @@ from pathlib import Path
 import numpy as np
 from astropy.table import Table
 
-__all__ = ["cache_dir", "derived_path", "fetch", "load", "fit_half", "test_half", "DerivedDataMissing"]
+__all__ = ["survey_limit", "completeness_limits", "cache_dir", "derived_path", "fetch", "load", "fit_half", "test_half", "DerivedDataMissing"]
 
-DERIVED_NAME = "bright_stars_bsc5_hip.ecsv"
+DERIVED_NAME = "hip_bsc5_calibrators_v2.ecsv"
 MAX_SEP_ARCSEC = 60.0  # proper motion over 1991.25-2000 plus BSC rounding stays well below this
 
 #: (package, version, kind, archive file name, sha256, {member in archive: local name})
@@ -157,11 +157,11 @@ def read_hip_main(path) -> Table:
             h = line.rstrip("\n").split("|")
             if len(h) < 77 or not h[8].strip():
                 continue
-            rows.append((int(h[1]), float(h[8]), float(h[9]), _num(h[5]),
+            rows.append((int(h[1]), float(h[8]), float(h[9]), _num(h[5]), _num(h[37]), _num(h[38]),
                          int(h[71]) if h[71].strip() else -1, h[76].strip(), h[68].strip() == "S",
                          h[59].strip()))
-    return Table(rows=rows, names=("hip", "ra_hip", "dec_hip", "V_hip", "hd_hip", "sptype_hip",
-                                   "hip_survey", "hip_multflag"))
+    return Table(rows=rows, names=("hip", "ra_hip", "dec_hip", "V_hip", "B-V_hip", "e_B-V_hip", "hd_hip",
+                                   "sptype_hip", "hip_survey", "hip_multflag"))
 
 
 def read_hip2(path) -> Table:
@@ -183,37 +183,67 @@ def read_cross_index(path) -> Table:
 
 
 def _join(bsc: Table, hip: Table, hip2: Table, xid: Table) -> Table:
+    """All Hipparcos stars of the V <= 8 file with new-reduction parallaxes, with the
+    BSC5 star (HR, MK type, UBV) where the cross-index and the position check agree."""
     import pandas as pd
-    df = bsc.to_pandas().merge(xid.to_pandas(), on="hr", how="inner")
-    df = df.merge(hip.to_pandas(), on="hip", how="inner").merge(hip2.to_pandas(), on="hip", how="inner")
+    from astropy.coordinates import SkyCoord
+    b = bsc.to_pandas().merge(xid.to_pandas(), on="hr", how="inner")
+    h = hip.to_pandas().merge(hip2.to_pandas(), on="hip", how="inner")
+    m = b.merge(h[["hip", "ra_hip", "dec_hip", "hd_hip"]], on="hip", how="inner")
     d2r = np.pi / 180.0
-    cossep = (np.sin(df.dec_bsc * d2r) * np.sin(df.dec_hip * d2r)
-              + np.cos(df.dec_bsc * d2r) * np.cos(df.dec_hip * d2r) * np.cos((df.ra_bsc - df.ra_hip) * d2r))
-    df["sep_arcsec"] = np.degrees(np.arccos(np.clip(cossep, -1, 1))) * 3600.0
-    hd_ok = (df.hd < 0) | (df.hd_hip < 0) | (df.hd == df.hd_hip)
-    df = df[(df.sep_arcsec <= MAX_SEP_ARCSEC) & hd_ok]
+    cossep = (np.sin(m.dec_bsc * d2r) * np.sin(m.dec_hip * d2r)
+              + np.cos(m.dec_bsc * d2r) * np.cos(m.dec_hip * d2r) * np.cos((m.ra_bsc - m.ra_hip) * d2r))
+    m["sep_arcsec"] = np.degrees(np.arccos(np.clip(cossep, -1, 1))) * 3600.0
+    hd_ok = (m.hd < 0) | (m.hd_hip < 0) | (m.hd == m.hd_hip)
+    m = m[(m.sep_arcsec <= MAX_SEP_ARCSEC) & hd_ok]
     # one HIP per HR and one HR per HIP (close pairs sharing a HIP entry are dropped)
-    df = df[~df.hr.duplicated(keep=False) & ~df.hip.duplicated(keep=False)]
-    df = df.drop(columns=["hd_x"]).sort_values("hr").reset_index(drop=True)
-    return Table.from_pandas(pd.DataFrame(df))
+    m = m[~m.hr.duplicated(keep=False) & ~m.hip.duplicated(keep=False)]
+    m = m.drop(columns=["hd_x", "ra_hip", "dec_hip", "hd_hip", "glat"])
+    m = m.rename(columns={"V": "V_bsc", "B-V": "B-V_bsc", "U-B": "U-B_bsc", "sptype": "sptype_bsc"})
+    t = h.merge(m, on="hip", how="left")
+    t["hr"] = t["hr"].fillna(-1).astype(int)
+    t["hd"] = t["hd"].fillna(-1).astype(int)
+    inb = t["hr"].to_numpy() > 0
+    # adopted values: BSC5 MK type and UBV for BSC stars, the Hipparcos fields otherwise
+    t["sptype"] = np.where(inb, t["sptype_bsc"].fillna(""), t["sptype_hip"].fillna(""))
+    t["sptype_src"] = np.where(inb, "BSC5", "HIP")
+    t["V"] = np.where(inb, t["V_bsc"], t["V_hip"])
+    t["B-V"] = np.where(inb, t["B-V_bsc"], t["B-V_hip"])
+    t["U-B"] = np.where(inb, t["U-B_bsc"], np.nan)
+    c = SkyCoord(ra=t["ra_hip"].to_numpy() * d2r, dec=t["dec_hip"].to_numpy() * d2r, unit="rad")
+    t["glat"] = c.galactic.b.deg
+    for col in ("sptype_bsc", "u_V", "u_B-V", "u_U-B", "bsc_multiple"):
+        t[col] = t[col].fillna("").astype(str)
+    t = t.sort_values("hip").reset_index(drop=True)
+    return Table.from_pandas(pd.DataFrame(t))
+
+
+def survey_limit(glat, sptnum):
+    """V completeness limit of the Hipparcos Survey (ESA 1997, Vol. 1, Sect. 2.2; from memory):
+    V <= 7.9 + 1.1 |sin b| for types up to G5, V <= 7.3 + 1.1 |sin b| for later ones."""
+    s = 1.1 * np.abs(np.sin(np.radians(np.asarray(glat, dtype=float))))
+    late = ~(np.asarray(sptnum, dtype=float) <= 45.0)  # unknown types take the later limit
+    return np.where(late, 7.3, 7.9) + s
 
 
 def _spot_checks(t: Table) -> None:
     """Layout checks on documented catalogue values (BSC5, Hipparcos 1997, van Leeuwen 2007)."""
-    byhr = {int(r): i for i, r in enumerate(t["hr"])}
+    byhr = {int(r): i for i, r in enumerate(t["hr"]) if r > 0}
     expect = {  # HR: (HD, HIP, V, B-V, U-B, MK type, plx, e_plx) as printed in the catalogues
         2491: (48915, 32349, -1.46, 0.00, -0.05, "A1Vm", 379.21, 1.58),
         7001: (172167, 91262, 0.03, 0.00, -0.01, "A0Va", 130.23, 0.36),
     }
     for hr, (hd, hipn, v, bv, ub, sp, plx, eplx) in expect.items():
         r = t[byhr[hr]]
-        got = (int(r["hd"]), int(r["hip"]), float(r["V"]), float(r["B-V"]), float(r["U-B"]),
-               str(r["sptype"]), float(r["plx"]), float(r["e_plx"]))
+        got = (int(r["hd"]), int(r["hip"]), float(r["V_bsc"]), float(r["B-V_bsc"]), float(r["U-B_bsc"]),
+               str(r["sptype_bsc"]), float(r["plx"]), float(r["e_plx"]))
         want = (hd, hipn, v, bv, ub, sp, plx, eplx)
         if any((abs(a - b) > 1e-6) if isinstance(a, float) else (a != b) for a, b in zip(got, want)):
             raise RuntimeError(f"layout spot check failed for HR {hr}: got {got}, catalogue says {want}")
-    if not 8000 <= len(t) <= 9110:
-        raise RuntimeError(f"cross-match kept {len(t)} stars; expected 8000-9110 of the 9110 BSC entries")
+    nb = int((t["hr"] > 0).sum())
+    if not 8000 <= nb <= 9110 or not 40000 <= len(t) <= 41411:
+        raise RuntimeError(f"cross-match kept {nb} BSC stars of 9110 (expected >= 8000) and {len(t)} "
+                           "Hipparcos stars of 41411 (expected >= 40000)")
 
 
 def fetch(verbose=True) -> Path:
@@ -233,13 +263,14 @@ def fetch(verbose=True) -> Path:
               read_hip2(raw / "hip2.dat"), read_cross_index(raw / "cross-id.dat"))
     _spot_checks(t)
     t.meta.update({
-        "description": "Bright Star Catalogue 5th ed. (Hoffleit & Warren 1991, V/50) stars cross-matched "
-                       "to the Hipparcos Catalogue (ESA 1997, I/239) and the Hipparcos new reduction "
-                       "(van Leeuwen 2007, I/311) through the BSC cross-index, with a position check "
-                       f"(<= {MAX_SEP_ARCSEC:g} arcsec) and HD agreement.",
+        "description": "Hipparcos Catalogue (ESA 1997, I/239) stars with V <= 8 and new-reduction "
+                       "parallaxes (van Leeuwen 2007, I/311), with the Bright Star Catalogue 5th ed. "
+                       "(Hoffleit & Warren 1991, V/50) star where the BSC cross-index, a position check "
+                       f"(<= {MAX_SEP_ARCSEC:g} arcsec) and the HD numbers agree.",
         "split": "fit on even HIP numbers; odd HIP numbers are held out for tests",
-        "columns": "V, B-V, U-B, sptype, glat: BSC5; ra_hip, dec_hip, sptype_hip, hip_survey: "
-                   "Hipparcos 1997; plx, e_plx (mas): van Leeuwen 2007",
+        "columns": "*_bsc: BSC5; *_hip, hip_survey: Hipparcos 1997; plx, e_plx (mas): van Leeuwen "
+                   "2007; sptype, V, B-V, U-B: the BSC5 values for BSC stars, else the Hipparcos ones "
+                   "(sptype_src says which; U-B only from BSC5); glat from the Hipparcos position",
     })
     out = derived_path()
     tmp = out.with_suffix(".tmp.ecsv")
@@ -256,6 +287,15 @@ def load() -> Table:
     if not p.exists():
         raise DerivedDataMissing(f"{p} not found; run `python -m specpar.brightcat` (needs network once)")
     return Table.read(p, format="ascii.ecsv")
+
+
+def completeness_limits(t: Table) -> np.ndarray:
+    """Per-star V limit to which the star's sample is complete: the Hipparcos Survey limit
+    (:func:`survey_limit`) for Survey stars, -inf (never complete) for the others."""
+    from .sptype import parse_sptypes
+    x = parse_sptypes(np.asarray(t["sptype"], dtype=object))["sptnum"].to_numpy(float)
+    lim = survey_limit(np.asarray(t["glat"], dtype=float), x)
+    return np.where(np.asarray(t["hip_survey"], dtype=bool), lim, -np.inf)
 
 
 def fit_half(t: Table) -> Table:

@@ -62,9 +62,10 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
         calibrations were fitted to the other half.
     calibrations : sequence of path
         Calibration files replacing shipped tables (as in :func:`specpar.estimate`).
-    v_limit : float
-        Apparent-magnitude completeness limit of the sample (6.5 for the Bright
-        Star Catalogue, Hoffleit & Warren 1991).
+    v_limit : float or array_like
+        Apparent-magnitude completeness limit of the sample, one value or one
+        per star (e.g. :func:`specpar.brightcat.completeness_limits`, the
+        Hipparcos Survey limits). Stars fainter than their limit are left out.
     min_stars : int
         Groups with fewer stars are listed but marked ``tested = False``.
     faint_quantile : float
@@ -98,7 +99,8 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
     d = phot["dist_pc"].to_numpy(float)
     lo, hi = phot["dist_lo_pc"].to_numpy(float), phot["dist_hi_pc"].to_numpy(float)
     av = np.nan_to_num(phot["av"].to_numpy(float))
-    usable = (g["lclass"].to_numpy(object) != "") & np.isfinite(d) & np.isfinite(V) & (V <= v_limit)
+    vlim = np.broadcast_to(np.asarray(v_limit, dtype=float), V.shape)
+    usable = (g["lclass"].to_numpy(object) != "") & np.isfinite(d) & np.isfinite(V) & (V <= vlim)
     rows = []
     key = g["lclass"].astype(str) + " " + g["tclass"].astype(str)
     for k in sorted(set(key[usable]), key=_group_order):
@@ -109,7 +111,7 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
         mtrig = V[good] - av[good] + 5 + 5 * np.log10(plx[good] / 1000.0)
         m_faint = np.quantile(mtrig, faint_quantile)
         a_hi = np.quantile(av[sel], 0.9)
-        d_max = 10 ** ((v_limit - a_hi - m_faint + 5) / 5)
+        d_max = 10 ** ((vlim[sel].min() - a_hi - m_faint + 5) / 5)
         vol = sel & (plx >= 1000.0 / d_max)
         n = int(vol.sum())
         if n == 0:
@@ -122,7 +124,6 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
     out = Table(rows=rows, names=("lclass", "tclass", "n", "d_max_pc", "dmag_median", "ratio_median",
                                   "coverage", "tested"),
                 dtype=(str, str, int, float, float, float, float, bool))
-    out.meta["v_limit"] = v_limit
     out.meta["calibrations"] = list(map(str, calibrations))
     return out
 

@@ -73,9 +73,10 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
         Groups with fewer stars are listed but marked ``tested = False``.
     faint_quantile : float
         The group's volume is the one within which a star at this quantile of
-        the group's trigonometric absolute magnitudes (stars with parallax
-        S/N >= ``min_snr``), extinguished by the group's 90th percentile A_V,
-        is still brighter than ``v_limit``. Stars with parallax above the
+        the group's trigonometric absolute magnitudes (V + 5 log10(plx/100 mas),
+        stars with parallax S/N >= ``min_snr``; no extinction, so the volume
+        does not depend on the calibration tested) is still brighter than the
+        faintest ``v_limit`` of the group. Stars with parallax above the
         corresponding limit form the volume-complete group.
 
     Returns
@@ -85,7 +86,8 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
         limit ``d_max_pc``, ``dmag_median`` = 5 log10 of the median
         photometric/trigonometric distance ratio, ``ratio_median``,
         ``coverage`` (fraction of trigonometric distances 1000/plx inside the
-        16-84% photometric interval) and ``tested``.
+        16-84% photometric interval), ``sig_pred`` (median half-width of that
+        interval in mag) and ``tested``.
 
     References
     ----------
@@ -111,10 +113,10 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
         good = sel & (plx > min_snr * eplx)
         if good.sum() < 3:
             continue
-        mtrig = V[good] - av[good] + 5 + 5 * np.log10(plx[good] / 1000.0)
+        # the volume does not depend on the calibration tested: no extinction enters it
+        mtrig = V[good] + 5 + 5 * np.log10(plx[good] / 1000.0)
         m_faint = np.quantile(mtrig, faint_quantile)
-        a_hi = np.quantile(av[sel], 0.9)
-        d_max = 10 ** ((vlim[sel].min() - a_hi - m_faint + 5) / 5)
+        d_max = 10 ** ((vlim[sel].min() - m_faint + 5) / 5)
         vol = sel & (plx >= 1000.0 / d_max)
         n = int(vol.sum())
         if n == 0:
@@ -122,11 +124,12 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
         dt = 1000.0 / plx[vol]
         ratio = np.median(d[vol] / dt)
         cov = float(np.mean((lo[vol] <= dt) & (dt <= hi[vol])))
+        sig_pred = float(np.median(2.5 * np.log10(hi[vol] / lo[vol])))
         lc, tc = k.split(" ")
-        rows.append((lc, tc, n, d_max, 5 * np.log10(ratio), ratio, cov, n >= min_stars))
+        rows.append((lc, tc, n, d_max, 5 * np.log10(ratio), ratio, cov, sig_pred, n >= min_stars))
     out = Table(rows=rows, names=("lclass", "tclass", "n", "d_max_pc", "dmag_median", "ratio_median",
-                                  "coverage", "tested"),
-                dtype=(str, str, int, float, float, float, float, bool))
+                                  "coverage", "sig_pred", "tested"),
+                dtype=(str, str, int, float, float, float, float, float, bool))
     out.meta["calibrations"] = list(map(str, calibrations))
     return out
 
@@ -757,6 +760,9 @@ def _calibration_table(lc, fit, support, near, colours, e_colours, col_src, nlow
         else:
             vals = np.full(len(idx), np.nan)
         t[cname] = np.ma.masked_invalid(np.round(vals, 3))
+    t["M_core"] = np.round(fit.M_core[idx], 3)
+    t["sig_core"] = np.round(fit.sig_core[idx], 3)
+    t["frac2"] = np.round(np.broadcast_to(fit.frac, fit.nodes.shape)[idx], 3)
     t["e_M_V"] = np.round(fit.e_M_V[idx], 3)
     t["e_sig_M_V"] = np.round(fit.e_sig_M_V[idx], 3)
     t["e_B-V"] = np.ma.masked_invalid(np.round(e_colours["B-V"][idx], 3))
@@ -778,7 +784,7 @@ def _calibration_table(lc, fit, support, near, colours, e_colours, col_src, nlow
             parts.append(f"sample: {info['sample']}")
         src.append("; ".join(parts))
     t["source"] = src
-    units = {c: "mag" for c in ("M_V", "sig_M_V", "e_M_V", "e_sig_M_V", "e_B-V", "e_U-B") + CALIBRATION_COLOURS}
+    units = {c: "mag" for c in ("M_V", "sig_M_V", "M_core", "sig_core", "e_M_V", "e_sig_M_V", "e_B-V", "e_U-B") + CALIBRATION_COLOURS}
     for c, u in units.items():
         if c in t.colnames:
             t[c].unit = u
@@ -804,7 +810,8 @@ def _calibration_table(lc, fit, support, near, colours, e_colours, col_src, nlow
                   + (f"V <= {info['v_limit']:g}; " if info.get("v_limit") is not None else "")
                   + f"optimizer: {'converged' if fit.converged else 'NOT converged: ' + fit.message}. "
                   "Rows are types with at least the minimum number of stars within 1.5 subtypes "
-                  "(n_near); n_stars counts stars within 0.5 subtype."),
+                  "(n_near); n_stars counts stars within 0.5 subtype. M_core, sig_core: the core "
+                  "Gaussian; frac2: fraction in the second component (offset and extra width above)."),
     })
     return t
 

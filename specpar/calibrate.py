@@ -197,7 +197,18 @@ def _component(m, plx, eplx, M0, sig, inv_h, n_grid=16):
     s = sig * _LN10_5
     uc = (M0 - m + 10.0) * _LN10_5 - 3.0 * s ** 2
     t = np.linspace(0.0, 1.0, n_grid)
+    disk = np.any(inv_h > 0)
     lo_prior, hi_prior = uc - 6.5 * s, uc + 6.5 * s
+    if disk:
+        # mode of prior x disk density (Newton from the left; converges monotonically since the
+        # derivative of the log density is convex and decreasing in u)
+        c = 1000.0 * inv_h
+        mode = uc.copy()
+        for _ in range(60):
+            ce = c * np.exp(-mode)
+            mode = mode + (-(mode - uc) / s ** 2 + ce) / (1.0 / s ** 2 + ce)
+        sd_mode = 1.0 / np.sqrt(1.0 / s ** 2 + c * np.exp(-mode))
+        hi_prior = np.maximum(hi_prior, mode + 6.5 * s)
     p_hi = np.maximum(plx, 0.0) + 7.0 * eplx
     p_lo = plx - 7.0 * eplx
     lo_lik = np.log(np.where(p_lo > 0, p_lo, 1e-300))
@@ -212,7 +223,6 @@ def _component(m, plx, eplx, M0, sig, inv_h, n_grid=16):
     pa, pb = np.exp(A2), np.exp(B2)
     u2 = np.log(pa[:, None] + (pb - pa)[:, None] * t[None, 1:-1])
     u = np.sort(np.concatenate([u1, u2], axis=1), axis=1)
-    disk = np.any(inv_h > 0)
 
     def integrate(u, with_plx):
         z = (u - uc[:, None]) / s[:, None]
@@ -235,7 +245,8 @@ def _component(m, plx, eplx, M0, sig, inv_h, n_grid=16):
 
     logn, ez, ez2 = integrate(u, True)
     if disk:
-        logz, pz, pz2 = integrate(uc[:, None] + 6.5 * s[:, None] * np.linspace(-1, 1, 21)[None, :], False)
+        zlo, zhi = mode - 8.0 * sd_mode, mode + 6.5 * s
+        logz, pz, pz2 = integrate(zlo[:, None] + (zhi - zlo)[:, None] * np.linspace(0, 1, 25)[None, :], False)
         logn, ez, ez2 = logn - logz, ez - pz, ez2 - pz2
     dl_duc, dl_ds = ez / s, ez2 / s
     d_m0 = dl_duc * _LN10_5
@@ -430,6 +441,9 @@ def fit_luminosity(sptnum, m0, plx, e_plx, *, nodes=None, inv_h=0.0, extra_var=0
               + [(-4.0, 4.0), (np.log(0.2), np.log(4.0))])
     res = minimize(nll, theta0, jac=True, method="L-BFGS-B", bounds=bounds,
                    options={"maxiter": 3000, "maxfun": 6000})
+    if not res.success:  # a line search stopped by quadrature noise: restart once from there
+        res = minimize(nll, res.x, jac=True, method="L-BFGS-B", bounds=bounds,
+                       options={"maxiter": 3000, "maxfun": 6000})
     th = res.x
     # curvature: outer product of the per-star gradients (Berndt, Hall, Hall & Hausman 1974),
     # equal to the Hessian at the maximum for a correct model, plus the penalty and prior terms

@@ -20,7 +20,7 @@ Steps:
 2. The fitted curves replace M_V and sig_M_V at the rows of the shipped tables
    inside the fitted type range (intrinsic colours stay as they are).
 3. Volume-complete check on the same even half (``specpar.calibrate.validate``):
-   per class x temperature class with >= 25 stars, the median distance offset is
+   per class x temperature class with >= MIN_GROUP stars, the median distance offset is
    removed and sig_M_V is rescaled so that 68% of the trigonometric distances fall
    in the 16-84% interval; the corrections are set at the group centres and
    interpolated linearly in type between them (no steps). Two rounds.
@@ -52,7 +52,7 @@ OUT = Path(__file__).resolve().parent / "fitted_mv.ecsv"
 SAMPLE = ("Hipparcos Survey stars V <= 8 with new-reduction parallaxes; BSC5 MK types where "
           "matched, else Hipparcos types; EVEN HIP numbers only (odd HIP held out)")
 REPLACE = ("IV", "III", "II")  # supergiants keep the published (from memory) values; see the report
-MIN_GROUP = 25
+MIN_GROUP = 10  # fewest stars of a volume-complete group whose median and coverage set a correction
 SIG_FLOOR = 0.10
 MAX_E_MV = 0.65  # a fitted M_V is used where its uncertainty is at most this (mag)
 #: K0 and K1 III: the red clump, M_Ks = -1.61 (Hawkins et al. 2017, from memory) plus the row's

@@ -87,7 +87,7 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
         photometric/trigonometric distance ratio, ``ratio_median``,
         ``coverage`` (fraction of trigonometric distances 1000/plx inside the
         16-84% photometric interval), ``sig_pred`` (median half-width of that
-        interval in mag) and ``tested``.
+        interval in mag), ``sptnum_median`` (median numeric type) and ``tested``.
 
     References
     ----------
@@ -125,11 +125,12 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
         ratio = np.median(d[vol] / dt)
         cov = float(np.mean((lo[vol] <= dt) & (dt <= hi[vol])))
         sig_pred = float(np.median(2.5 * np.log10(hi[vol] / lo[vol])))
+        x_med = float(np.median(g["sptnum"].to_numpy(float)[vol]))
         lc, tc = k.split(" ")
-        rows.append((lc, tc, n, d_max, 5 * np.log10(ratio), ratio, cov, sig_pred, n >= min_stars))
+        rows.append((lc, tc, n, d_max, 5 * np.log10(ratio), ratio, cov, sig_pred, x_med, n >= min_stars))
     out = Table(rows=rows, names=("lclass", "tclass", "n", "d_max_pc", "dmag_median", "ratio_median",
-                                  "coverage", "sig_pred", "tested"),
-                dtype=(str, str, int, float, float, float, float, float, bool))
+                                  "coverage", "sig_pred", "sptnum_median", "tested"),
+                dtype=(str, str, int, float, float, float, float, float, float, bool))
     out.meta["calibrations"] = list(map(str, calibrations))
     return out
 
@@ -631,6 +632,10 @@ def calibrate(table, *, classes=None, columns=None, rv=3.1, scale_height_pc="aut
             nodes = np.array([nodes[0], nodes[0] + 1.0])
         near = np.array([np.sum(np.abs(xs - xn) <= 1.5) for xn in nodes])
         support = near >= min_per_node
+        if support.sum() < 2:
+            why(sel, f"class {lc}: fewer than two types with min_per_node = {min_per_node} stars "
+                     "within 1.5 subtypes")
+            continue
         # intrinsic colours from the nearby (unreddened) stars; the base table where they are too few
         low = sel & (plx > LOW_RED_PLX) & (plx > 5 * eplx)
         nlow = np.array([np.sum(np.abs(x[low] - xn) <= 1.5) for xn in nodes])

@@ -231,8 +231,11 @@ def test_synthetic_injected_stars_are_recovered_and_diagnosed(synthetic):
     rec_g, rec_b = tense[giant].mean(), tense[binary].mean()
     print(f"recovered: misclassified giants {rec_g:.3f}, binaries {rec_b:.3f}")
     assert rec_g > 0.95
-    # giants are recognised as giants (class III, or the neighbouring II / IV)
-    assert np.mean([d.startswith("class:III") for d in diag[giant & tense]]) > 0.85
+    # giants are recognised as giants (class III, or the neighbouring II / IV). Since issue 9 the
+    # G8-K3 M_V of classes II, III and IV are fitted to Hipparcos stars and lie within about
+    # 1 mag of each other, so the diagnosis cannot always tell these three classes apart.
+    assert np.mean([d.startswith(("class:II", "class:IV")) for d in diag[giant & tense]]) > 0.95
+    assert np.mean([d.startswith("class:III") for d in diag[giant & tense]]) > 0.35
     assert all(d.startswith("class:") for d in diag[giant & tense])
     # binaries: 0.5-0.75 mag against an M_V scatter of 0.35-0.5 mag, so few pass |z| > 3; but z
     # is shifted by the companion light: mean z ~ -brightening / combined magnitude error

@@ -22,8 +22,8 @@ Steps:
 3. Volume-complete check on the same even half (``specpar.calibrate.validate``):
    per class x temperature class with >= MIN_GROUP stars, the median distance offset is
    removed and sig_M_V is rescaled so that 68% of the trigonometric distances fall
-   in the 16-84% interval; the corrections are set at the group centres and
-   interpolated linearly in type between them (no steps). Two rounds.
+   in the 16-84% interval; the corrections are set at the groups' median types and
+   interpolated linearly in type between them (no steps). ROUNDS rounds.
 Rows where the fit is uninformative (e_M_V > MAX_E_MV) keep their previous value
 shifted by the fit-minus-previous offset interpolated in type. K0-K1 III are set on
 the red clump of Hawkins et al. (2017) through the row's (V-Ks)_0.
@@ -54,6 +54,7 @@ SAMPLE = ("Hipparcos Survey stars V <= 8 with new-reduction parallaxes; BSC5 MK 
 REPLACE = ("IV", "III", "II")  # supergiants keep the published (from memory) values; see the report
 MIN_GROUP = 10  # fewest stars of a volume-complete group whose median and coverage set a correction
 SIG_FLOOR = 0.10
+ROUNDS = 4  # correction rounds (the corrections interact through the interpolation in type)
 MAX_E_MV = 0.65  # a fitted M_V is used where its uncertainty is at most this (mag)
 #: K0 and K1 III: the red clump, M_Ks = -1.61 (Hawkins et al. 2017, from memory) plus the row's
 #: (V-Ks)_0; the fit's core (clump) component is compared with it in the report
@@ -122,7 +123,7 @@ def corrections(v, values, old):
         if len(g) == 0:
             out[lc] = (dmv0, dsig20)
             continue
-        centres = np.array(["OBAFGKM".index(tc) * 10 + 5.0 for tc in g["tclass"]])
+        centres = np.asarray(g["sptnum_median"], float)  # the group's median type
         dm = np.asarray(g["dmag_median"], float)  # phot/trig > 1: table too bright -> fainter
         cov = np.clip(np.asarray(g["coverage"], float), 0.05, 0.98)
         sp = np.asarray(g["sig_pred"], float)
@@ -144,13 +145,13 @@ def main():
         print(f"class {lc}: {f.meta['notes'][:160]}...")
     corr = {}
     with tempfile.TemporaryDirectory() as tmp:
-        for rnd in range(3):
+        for rnd in range(ROUNDS + 1):
             folder = Path(tmp) / f"round{rnd}"  # new paths: the table loader caches by path
             folder.mkdir()
             paths, values = candidate_tables(fits, folder, corr)
             v = validate(even, calibrations=paths, v_limit=brightcat.completeness_limits(even))
             print(format_validation(v, f"even half (fitting stars), round {rnd}"))
-            if rnd < 2:
+            if rnd < ROUNDS:
                 corr = corrections(v, values, corr)
     rows = []
     for lc, (x, inside, mv, sig, emv, near, names, kind, mv_f) in values.items():

@@ -7,7 +7,8 @@ from .calibration import CalibrationSet, load_calibration, default_calibrations 
 from .extinction import band_coefficients, LAWS  # noqa: E402
 from .estimate import estimate, EstimateOptions  # noqa: E402
 from .cluster import fit_cluster, ClusterResult, simulate_cluster  # noqa: E402
+from .calibrate import calibrate, write_calibrations, CalibrationFit  # noqa: E402
 
 __all__ = ["estimate", "EstimateOptions", "parse_sptypes", "CalibrationSet", "load_calibration",
            "default_calibrations", "band_coefficients", "LAWS", "fit_cluster", "ClusterResult",
-           "simulate_cluster", "__version__"]
+           "simulate_cluster", "calibrate", "write_calibrations", "CalibrationFit", "__version__"]

@@ -231,13 +231,16 @@ def test_synthetic_injected_stars_are_recovered_and_diagnosed(synthetic):
     rec_g, rec_b = tense[giant].mean(), tense[binary].mean()
     print(f"recovered: misclassified giants {rec_g:.3f}, binaries {rec_b:.3f}")
     assert rec_g > 0.95
-    # giants are recognised as giants (class III, or the neighbouring II / IV)
-    # changed deliberately (issue 11 item 7): a parallax within 3 sigma of zero cannot tell the
-    # classes apart, so those giants get the single code plx_uninformative instead of a class
+    # giants are recognised as giants (class III, or the neighbouring II / IV). Since issue 9 the
+    # G8-K3 M_V of classes II, III and IV are fitted to Hipparcos stars and lie within about
+    # 1 mag of each other, so the diagnosis cannot always tell these three classes apart.
+    # Changed deliberately (issue 11 item 7): a parallax within 3 sigma of zero cannot tell the
+    # classes apart, so those giants get the single code plx_uninformative instead of a class.
     snr = (cat["plx"] / cat["e_plx"]).to_numpy()
     decisive = giant & tense & (snr > 3)
     assert decisive.sum() > 0.9 * (giant & tense).sum()
-    assert np.mean([d.startswith("class:III") for d in diag[decisive]]) > 0.85
+    assert np.mean([d.startswith(("class:II", "class:IV")) for d in diag[decisive]]) > 0.95
+    assert np.mean([d.startswith("class:III") for d in diag[decisive]]) > 0.35
     assert all(d.startswith("class:") for d in diag[decisive])
     assert all(d == "plx_uninformative" for d in diag[giant & tense & (np.abs(snr) <= 3)])
     # binaries: 0.5-0.75 mag against an M_V scatter of 0.35-0.5 mag, so few pass |z| > 3; but z

@@ -25,8 +25,8 @@ from .bands import BAND_NAMES
 
 __all__ = ["resolve_columns", "known_targets", "column_map", "describe_mapping", "NUMERIC_TARGETS"]
 
-#: Non-photometric targets we read.
-OTHER_TARGETS = ("sptype", "plx", "e_plx", "period_d", "pmode")
+#: Non-photometric targets we read (``id`` only names the star in worked solutions and notes).
+OTHER_TARGETS = ("id", "sptype", "plx", "e_plx", "period_d", "pmode")
 _COLOUR_RE = re.compile(r"^(?:e_)?([A-Za-z]+)-([A-Za-z]+)$")
 
 #: Spellings recognised for each band, in lower case (besides the band name itself).
@@ -59,7 +59,7 @@ def _error_spellings(name: str) -> list:
 
 def known_targets(columns=()) -> list:
     """Our column names: bands, their errors, colours of any two bands (with
-    errors), and ``sptype``, ``plx``, ``e_plx``, ``period_d``, ``pmode``."""
+    errors), and ``id``, ``sptype``, ``plx``, ``e_plx``, ``period_d``, ``pmode``."""
     return list(BAND_NAMES) + [f"e_{b}" for b in BAND_NAMES] + list(OTHER_TARGETS) + ["X-Y colours"]
 
 
@@ -73,10 +73,10 @@ def _is_target(name: str) -> bool:
 
 
 def _numeric_target(name: str) -> bool:
-    return name not in ("sptype", "pmode")
+    return name not in ("id", "sptype", "pmode")
 
 
-NUMERIC_TARGETS = "every target but sptype and pmode"
+NUMERIC_TARGETS = "every target but id, sptype and pmode"
 
 
 def column_map(pairs) -> dict:
@@ -224,7 +224,7 @@ def resolve_columns(frame: pd.DataFrame, columns=None, *, recognise=True):
     for n in names:
         lower.setdefault(n.lower(), []).append(n)
     for t in [t for t in list(mapping) + [n for n in names if _is_target(n)] if not t.startswith("e_")]:
-        if t in ("sptype", "pmode", "period_d"):
+        if t in ("id", "sptype", "pmode", "period_d"):
             continue
         et = f"e_{t}"
         if et in mapping or et in present or et in columns:

@@ -16,7 +16,7 @@ from .estimate import estimate
 from .sptype import parse_one
 from .tableio import read_table, write_table
 
-__all__ = ["synthetic_catalogue", "per_row_two_band", "run_benchmark"]
+__all__ = ["synthetic_catalogue", "synthetic_mixed", "per_row_two_band", "run_benchmark"]
 
 _TYPES = [f"{c}{s}{sep}{lc}" for c in "BAFGKM" for s in (0, 2, 5, 7) for lc in ("V", "IV", "III")
           for sep in ("", " ")]
@@ -32,6 +32,45 @@ def synthetic_catalogue(n: int, seed: int = 1) -> pd.DataFrame:
         "B": v + rng.uniform(-0.2, 1.8, n), "e_B": np.full(n, 0.02),
         "V": v, "e_V": np.full(n, 0.02),
     })
+
+
+#: Chance that an invented star has each band (they sum to 3.1 bands per star on average,
+#: the mix described in issue 13: Gaia-like bands common, Johnson U, Rc rare).
+MIXED_BAND_CHANCE = {"V": 0.5, "B": 0.4, "G": 0.6, "BP": 0.3, "RP": 0.3, "J": 0.3, "H": 0.2,
+                     "Ks": 0.3, "U": 0.05, "Rc": 0.05, "Ic": 0.1}
+
+
+def synthetic_mixed(n: int, seed: int = 1) -> pd.DataFrame:
+    """``n`` invented stars of mixed types with a random subset of the 11 bands.
+
+    Each band is present independently with the chance in
+    :data:`MIXED_BAND_CHANCE` (3.1 bands per star on average), so the file
+    holds many different sets of observables. Magnitudes are the shipped
+    calibration's absolute magnitudes plus a distance modulus (5-12 mag),
+    reddening E(B-V) 0-1 (F99, R_V = 3.1) and 0.02-0.05 mag noise; bands the
+    calibration lacks for a type get an arbitrary value (and are flagged).
+    Invented stars: they exercise the pipeline, they prove no science.
+    """
+    from .bands import BAND_NAMES
+    rng = np.random.default_rng(seed)
+    types = np.asarray(_TYPES, dtype=object)[rng.integers(0, len(_TYPES), n)]
+    uniq, inv = np.unique(types, return_inverse=True)
+    parsed = [parse_one(t) for t in uniq]
+    cal = default_calibrations().evaluate(np.array([p["sptnum"] for p in parsed], float),
+                                          np.array([p["lc_bright"] for p in parsed], object),
+                                          np.array([p["lc_faint"] for p in parsed], object))
+    absmag = cal.absmag[inv]
+    dm = rng.uniform(5, 12, n)
+    ebv = rng.uniform(0, 1, n)
+    R = band_coefficients(DEFAULT_LAW, DEFAULT_RV)
+    cols = {"id": np.char.add("MIX-", np.arange(n).astype(str)), "sptype": types}
+    for b, name in enumerate(BAND_NAMES):
+        err = rng.uniform(0.02, 0.05, n)
+        mag = np.where(np.isfinite(absmag[:, b]), absmag[:, b], 0.0) + dm + ebv * R[b] + err * rng.standard_normal(n)
+        have = rng.random(n) < MIXED_BAND_CHANCE[name]
+        cols[name] = np.where(have, mag, np.nan)
+        cols[f"e_{name}"] = np.where(have, err, np.nan)
+    return pd.DataFrame(cols)
 
 
 def per_row_two_band(frame: pd.DataFrame, sigma_rv: float = 0.2) -> list:

@@ -24,7 +24,8 @@ from scipy import stats
 
 from .bands import BANDS, chain_matrices
 
-__all__ = ["Observables", "solve", "dm_to_pc", "SolverResult"]
+__all__ = ["Observables", "solve", "dm_to_pc", "SolverResult", "fit_draws", "fit_draws_compact",
+           "observable_groups"]
 
 _P, _ = chain_matrices()
 _FIXED_E = 1e12  # precision that pins E(B-V) = 0 when no colour is available
@@ -184,7 +185,7 @@ def _gls_group(y, A, C, u, sig_rv, colour_known, mag_known, free, keep_weights):
 
 
 def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
-          R, dR, sigma_rv=0.0, rv=3.1, rv_free=None, keep_weights=False):
+          R, dR, sigma_rv=0.0, rv=3.1, rv_free=None, keep_weights=False, codes=None):
     """Fit distance modulus and E(B-V) for every star.
 
     Parameters
@@ -205,6 +206,11 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
         freedom is spent on R_V.
     keep_weights : bool
         Also return the inverse covariance per star (for :func:`fit_draws`).
+    codes : (N,) int, optional
+        When given, ``absmag``, ``sub_modes``, ``var_mv`` and ``var_colour``
+        hold one row per distinct calibration (e.g. per spectral type) and
+        star i uses row ``codes[i]`` of them; this avoids copying the
+        calibration out to every star.
 
     Returns
     -------
@@ -213,9 +219,13 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
     N, K = obs.y.shape
     R = np.broadcast_to(np.asarray(R, float), (N, len(BANDS)))
     dR = np.broadcast_to(np.asarray(dR, float), (N, len(BANDS)))
+    absmag = np.asarray(absmag, float)
+    if codes is None:
+        codes = np.arange(N)
+    codes = np.asarray(codes, np.intp)
     touches = obs.L != 0  # (K, nb)
-    uncal_band = ~np.isfinite(absmag)
-    uncalibrated = (uncal_band.astype(float) @ touches.T.astype(float)) > 0  # (N, K)
+    # an observable is uncalibrated where any band it touches has no calibration
+    uncalibrated = ((~np.isfinite(absmag)).astype(float) @ touches.T.astype(float) > 0)[codes]  # (N, K)
     measured = np.isfinite(obs.y) & np.isfinite(obs.sigma)
     valid = measured & ~uncalibrated
     is_mag = obs.is_magnitude
@@ -235,22 +245,24 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
     cov = np.broadcast_to(np.eye(2), (N, 2, 2)).copy()  # stays for rows without data
     chi2 = np.zeros(N)
     W = np.broadcast_to(np.eye(K), (N, K, K)).copy() if keep_weights else None
-    absmag0 = np.nan_to_num(absmag)
-    l1_all = obs.L.sum(axis=1)
-    LP_all = obs.L @ _P
-    var_mv = np.nan_to_num(np.broadcast_to(np.asarray(var_mv, float), (N,)))
+    # per calibration row (few when codes are given): observable-space values
+    model = np.nan_to_num(absmag) @ obs.L.T  # (U, K)
+    var_mv = np.nan_to_num(np.asarray(var_mv, float))
     var_colour = np.nan_to_num(var_colour)
     sub_modes = np.nan_to_num(sub_modes)
+    l1_all = obs.L.sum(axis=1)
+    LP_all = obs.L @ _P
     for rows, kidx in observable_groups(valid):
         k = kidx.shape[1]
+        c = codes[rows]
         Lg = obs.L[kidx]  # (n, k, nb)
         y = np.take_along_axis(obs.y[rows], kidx, axis=1)
         sig = np.take_along_axis(obs.sigma[rows], kidx, axis=1)
-        ydiff = y - np.einsum("nkb,nb->nk", Lg, absmag0[rows])
+        ydiff = y - np.take_along_axis(model[c], kidx, axis=1)
         l1 = l1_all[kidx]
         A = np.stack([l1, np.einsum("nkb,nb->nk", Lg, R[rows])], axis=-1)
         u = np.einsum("nkb,nb->nk", Lg, dR[rows])
-        C = _calibration_cov(Lg, l1, LP_all[kidx], sub_modes[rows], var_mv[rows], var_colour[rows])
+        C = _calibration_cov(Lg, l1, LP_all[kidx], sub_modes[c], var_mv[c], var_colour[c])
         C[:, np.arange(k), np.arange(k)] += sig ** 2
         th, cv, c2, erv, Wg = _gls_group(ydiff, A, C, u, sig_rv[rows], colour_known[rows],
                                          mag_known[rows], free[rows], keep_weights)
@@ -312,4 +324,46 @@ def fit_draws(weights, valid, colour_known, mag_known, ydiff, A):
         ebv = (F[..., 0, 0] * b[..., 1] - F[..., 1, 0] * b[..., 0]) / det
     theta = np.stack([dm, np.where(colour_known[:, None], ebv, 0.0)], axis=-1)
     theta[bad] = np.nan
+    return theta
+
+
+def fit_draws_compact(weights, colour_known, mag_known, ydiff, a0, a1):
+    """:func:`fit_draws` for stars that all use their k observables.
+
+    Parameters
+    ----------
+    weights : (m, k, k) inverse covariance of each star's nominal fit,
+        restricted to the observables it used.
+    colour_known, mag_known : (m,) bool
+    ydiff : (m, n, k) observables minus the drawn absolute magnitudes.
+    a0 : (m, k) response of each observable to the distance modulus.
+    a1 : (m, n, k) response of each observable to E(B-V), per draw.
+
+    Returns
+    -------
+    (m, n, 2) distance modulus and E(B-V) per draw; NaN where a draw needs an
+    observable with no calibration.
+
+    Notes
+    -----
+    The sums over observables are written out one observable at a time, so
+    every star's result depends on that star alone, whatever the batch.
+    """
+    m, n, k = ydiff.shape
+    wa0 = [sum(weights[:, p, j] * a0[:, j] for j in range(k)) for p in range(k)]  # (m,) each
+    wa1 = [sum(weights[:, p, j, None] * a1[:, :, j] for j in range(k)) for p in range(k)]  # (m, n)
+    f00 = sum(a0[:, p] * wa0[p] for p in range(k))[:, None]
+    f01 = sum(a0[:, p, None] * wa1[p] for p in range(k))
+    f10 = sum(a1[:, :, p] * wa0[p][:, None] for p in range(k))
+    f11 = sum(a1[:, :, p] * wa1[p] for p in range(k))
+    b0 = sum(wa0[p][:, None] * ydiff[:, :, p] for p in range(k))
+    b1 = sum(wa1[p] * ydiff[:, :, p] for p in range(k))
+    f11 = f11 + np.where(colour_known, 0.0, _FIXED_E)[:, None]
+    f00 = f00 + np.where(mag_known, 0.0, _FIXED_E)[:, None]
+    det = f00 * f11 - f01 * f10
+    with np.errstate(invalid="ignore", divide="ignore"):
+        dm = (f11 * b0 - f01 * b1) / det
+        ebv = (f00 * b1 - f10 * b0) / det
+    theta = np.stack([dm, np.where(colour_known[:, None], ebv, 0.0)], axis=-1)
+    theta[~np.isfinite(ydiff).all(axis=-1)] = np.nan
     return theta

@@ -455,6 +455,7 @@ def _monte_carlo(obs, cal, modes, cals, sptnum, e_spt, lcb, lcf, keys, res, opts
                      + cal.dabsmag[fc][linear, None, :] * (e_spt[first][linear, None] * zg[None])[:, :, None])
     # a band without calibration must not poison the others through NaN * 0
     tab_obs = np.where(np.isnan(table) @ touches > 0, np.nan, np.nan_to_num(table) @ L.T)  # (U, G, K)
+    tab_flat = tab_obs.ravel()
     # extinction coefficients on the R_V grid of coefficients_at, in observable space
     rgrid = np.round(np.arange(lo_rv, hi_rv + 1e-9, 0.05), 3)
     rtab = band_coefficients(opts.law, rgrid) @ L.T  # (n_rv, K)
@@ -478,11 +479,8 @@ def _monte_carlo(obs, cal, modes, cals, sptnum, e_spt, lcb, lcf, keys, res, opts
             pos = (np.clip(normal_draws(kb, opts.seed, c_spt, n), zg[0], zg[-1]) - zg[0]) / (zg[1] - zg[0])
             j0 = np.minimum(pos.astype(int), G - 2)
             frac = (pos - j0)[:, :, None]
-            t = tab_obs[ucode[b]]  # (m, G, K)
-            t = np.take_along_axis(t, np.broadcast_to(kidx[:, None, :], (m, G, k)), axis=2)  # (m, G, k)
-            jj = j0[:, :, None]
-            ta = np.take_along_axis(t, np.broadcast_to(jj, (m, n, k)), axis=1)
-            tb = np.take_along_axis(t, np.broadcast_to(jj + 1, (m, n, k)), axis=1)
+            at = ((ucode[b][:, None, None] * G + j0[:, :, None]) * K + kidx[:, None, :])  # (m, n, k)
+            ta, tb = tab_flat[at], tab_flat[at + K]
             model = ta * (1.0 - frac) + tb * frac
             # M_V scatter moves every band alike; colour scatter moves the bands downstream
             c = codes[b]
@@ -508,8 +506,8 @@ def _monte_carlo(obs, cal, modes, cals, sptnum, e_spt, lcb, lcf, keys, res, opts
                            lo_rv, hi_rv)
             j = np.clip(((rv_d - rgrid[0]) / rstep).astype(np.intp), 0, rgrid.size - 2)
             dx = (rv_d - rgrid[j])[:, :, None]
-            kk3 = np.broadcast_to(kidx[:, None, :], (m, n, k))
-            a1 = rslope[j[:, :, None], kk3] * dx + rtab[j[:, :, None], kk3]
+            at = j[:, :, None] * K + kidx[:, None, :]
+            a1 = rslope.ravel()[at] * dx + rtab.ravel()[at]
             a0 = l1[kidx]  # (m, k)
             W = res.weights[b[:, None, None], kidx[:, :, None], kidx[:, None, :]]  # (m, k, k)
             theta = fit_draws_compact(W, res.colour_known[b], res.mag_known[b], ydiff, a0, a1)

@@ -80,26 +80,34 @@ def _add_estimate_options(p):
                         "(Bailer-Jones 2015; default 1350 pc)")
     p.add_argument("--overwrite", action="store_true", help="replace the output file if it exists")
     p.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+    g = p.add_argument_group("large inputs (Parquet and CSV are streamed in blocks; a folder is a Parquet dataset)")
+    g.add_argument("--chunk-rows", type=int, default=100_000, metavar="N",
+                   help="rows per block (default 100000; 0 reads the table whole)")
+    g.add_argument("--threads", type=int, default=1, metavar="N",
+                   help="blocks solved at once in this process (default 1)")
+    g.add_argument("--engine", choices=("local", "dask"), default="local",
+                   help="'dask' runs the blocks on a Dask cluster (default local)")
+    g.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="dask: workers of the local cluster started for the run (default: one per core)")
+    g.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="dask: address of a running scheduler, e.g. tcp://127.0.0.1:8786")
 
 
 def _cmd_estimate(args):
-    from .estimate import estimate
-    from .tableio import read_table, write_table
-    table = read_table(args.input, args.in_format)
-    out = estimate(
-        table, law=args.law, rv=args.rv, sigma_rv=args.sigma_rv, fit_rv=args.fit_rv,
+    from .stream import estimate_file
+    summary = estimate_file(
+        args.input, args.output, in_format=args.in_format, out_format=args.out_format,
+        chunk_rows=args.chunk_rows, threads=args.threads, engine=args.engine, workers=args.workers,
+        scheduler=args.scheduler, overwrite=args.overwrite, progress=not args.quiet,
+        law=args.law, rv=args.rv, sigma_rv=args.sigma_rv, fit_rv=args.fit_rv,
         method="mc" if args.mc else "analytic", n_draws=args.mc or 1000, seed=args.seed,
         default_error=args.default_error, calibrations=tuple(args.calibration or ()),
-        columns=column_map(args.col), progress=not args.quiet, explain=args.explain,
+        columns=column_map(args.col), explain=args.explain,
         plx_offset=args.plx_offset, plx_error_scale=args.plx_error_scale, tension=args.tension,
         length_scale_pc=args.length_scale)
-    write_table(out, args.output, args.out_format, inputs=[args.input], overwrite=args.overwrite)
     if not args.quiet:
-        n = len(out)
-        ok = int((out["flags"] & 256 == 0).sum())
-        flagged = int((out["flags"] != 0).sum())
-        print(f"specpar: {n} rows -> {args.output}: {ok} with a distance, {flagged} flagged "
-              f"(see the 'note' column)")
+        print(f"specpar: {summary['rows']} rows -> {args.output}: {summary['with_distance']} with a distance, "
+              f"{summary['flagged']} flagged (see the 'note' column)")
     return 0
 
 
@@ -174,6 +182,10 @@ def main(args=None) -> int:
     except (ValueError, TypeError, OSError, KeyError) as exc:
         msg = exc.args[0] if isinstance(exc, KeyError) and exc.args else exc
         print(f"specpar: error: {msg}", file=sys.stderr)
+        return 1
+    except MemoryError:
+        print("specpar: error: out of memory; use smaller blocks (--chunk-rows) or fewer draws (--mc)",
+              file=sys.stderr)
         return 1
     except KeyboardInterrupt:
         print("specpar: interrupted", file=sys.stderr)

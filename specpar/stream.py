@@ -185,9 +185,9 @@ class _CsvSink:
             for k, v in meta.items():
                 self.fh.write(f"# specpar {k}: {json.dumps(v)}\n")
             self.columns = list(frame.columns)
-            frame.to_csv(self.fh, index=False)
+            frame.to_csv(self.fh, index=False, na_rep="nan")
         else:
-            frame[self.columns].to_csv(self.fh, index=False, header=False)
+            frame[self.columns].to_csv(self.fh, index=False, header=False, na_rep="nan")
 
     def close(self):
         if self.fh is not None:

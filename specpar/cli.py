@@ -124,8 +124,12 @@ def _cmd_calibrations(args):
 
 
 def _cmd_bench(args):
-    from .bench import run_benchmark
-    run_benchmark(n_rows=args.rows, n_loop=args.loop_rows, workdir=args.workdir)
+    from .bench import run_benchmark, run_dataset_benchmark
+    if args.dataset:
+        run_dataset_benchmark(n_rows=args.rows, workdir=args.workdir)
+    else:
+        run_benchmark(n_rows=args.rows, n_loop=args.loop_rows, workdir=args.workdir, mixed=args.mixed,
+                      threads=args.threads)
     return 0
 
 
@@ -165,6 +169,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--loop-rows", type=int, default=20_000,
                    help="rows for the plain per-row Python comparison (default 20000)")
     p.add_argument("--workdir", default=None, help="folder for the Parquet files (default: a temporary one)")
+    p.add_argument("--mixed", action="store_true",
+                   help="realistic mix: 11 bands, 3.1 per star on average (default: B and V only)")
+    p.add_argument("--threads", type=int, default=1, help="blocks solved at once (default 1)")
+    p.add_argument("--dataset", action="store_true",
+                   help="write --rows mixed rows as a Parquet dataset and time 'specpar estimate' on it "
+                        "in a child process, reporting rows/s and peak memory")
     p.set_defaults(func=_cmd_bench)
     _register_optional(sub)
     return parser

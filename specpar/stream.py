@@ -113,7 +113,8 @@ def _csv_blocks(path, chunk_rows):
     # rows of about 0.2-1 kB: blocks of ~chunk_rows rows
     read = pcsv.ReadOptions(block_size=max(1 << 20, min(1 << 30, 256 * chunk_rows)))
     parse = pcsv.ParseOptions(invalid_row_handler=None)
-    conv = pcsv.ConvertOptions(strings_can_be_null=True)
+    # only an empty field is missing (as for the whole-table reader); "N/A" or "null" is a bad value
+    conv = pcsv.ConvertOptions(null_values=[""], strings_can_be_null=True, quoted_strings_can_be_null=True)
     try:
         stream = pa.input_stream(str(path), compression="detect")
         # skip leading comment lines (specpar's own metadata lines start with '#')

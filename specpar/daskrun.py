@@ -24,7 +24,7 @@ from pathlib import Path
 import pandas as pd
 
 from .stream import (DEFAULT_CHUNK_ROWS, _combine, _run_file, dataset_files, estimate_frame, is_dataset,
-                     make_options, publish_folder)
+                     make_options, parquet_writer, publish_folder)
 from .tableio import atomic_write, guess_format
 
 __all__ = ["estimate_dask", "estimate_file_dask", "connect"]
@@ -210,7 +210,7 @@ def _join_parts(parts, out_path):
             pf = pq.ParquetFile(str(p))
             if writer is None:
                 schema = pf.schema_arrow
-                writer = pq.ParquetWriter(str(out_path), schema)
+                writer = parquet_writer(out_path, schema)
             for i in range(pf.metadata.num_row_groups):
                 t = pf.read_row_group(i)
                 for c in schema.names:

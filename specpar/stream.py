@@ -142,6 +142,16 @@ def _starts_with_comment(path) -> bool:
 
 # ----------------------------------------------------------------------------- writing
 
+def parquet_writer(path, schema):
+    """A ``pyarrow.parquet.ParquetWriter``; dictionary encoding only for text columns
+    (types, classes, flag names and notes repeat; numbers rarely do, and trying
+    them costs a third of the writing time)."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+    text = [f.name for f in schema if pa.types.is_string(f.type) or pa.types.is_large_string(f.type)]
+    return pq.ParquetWriter(str(path), schema, use_dictionary=text)
+
+
 class _ParquetSink:
     """Appends blocks to one Parquet file with the first block's schema."""
 
@@ -160,7 +170,7 @@ class _ParquetSink:
             # a column that is all empty in the first block must still take text later
             self.schema = pa.schema([pa.field(f.name, pa.large_string()) if pa.types.is_null(f.type) else f
                                      for f in self.schema], metadata=self.schema.metadata)
-            self.writer = pq.ParquetWriter(self.path, self.schema)
+            self.writer = parquet_writer(self.path, self.schema)
         arrow = pa.Table.from_pandas(frame, preserve_index=False)
         try:
             arrow = arrow.select(self.schema.names).cast(self.schema)

@@ -20,7 +20,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from scipy.special import chdtrc
 
 from .bands import BANDS, chain_matrices
 
@@ -77,7 +77,8 @@ class SolverResult:
     def p_value(self) -> np.ndarray:
         """Chi-square tail probability (NaN where dof is 0)."""
         with np.errstate(invalid="ignore"):
-            return np.where(self.dof > 0, stats.chi2.sf(self.chi2, np.maximum(self.dof, 1)), np.nan)
+            # chdtrc is the chi-square survival function scipy.stats.chi2.sf evaluates (imported alone: faster start)
+            return np.where(self.dof > 0, chdtrc(np.maximum(self.dof, 1), self.chi2), np.nan)
 
 
 def observable_groups(valid):

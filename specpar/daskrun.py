@@ -125,6 +125,16 @@ def _pieces(src, chunk_rows):
              Path(f"part-{k:06d}.parquet")) for k, g in enumerate(pieces)]
 
 
+def _rows(pieces) -> int:
+    """Rows of all pieces, from the Parquet footers."""
+    import pyarrow.parquet as pq
+    n = 0
+    for _, path, groups, _ in pieces:
+        md = pq.ParquetFile(path).metadata
+        n += md.num_rows if groups is None else sum(md.row_group(i).num_rows for i in groups)
+    return n
+
+
 def _solve_piece(path, row_groups, out_path, opts, chunk_rows):
     """Worker task: solve one piece and write it to ``out_path``; the row counts."""
     Path(out_path).parent.mkdir(parents=True, exist_ok=True)
@@ -164,7 +174,7 @@ def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk
             bar = None
             if progress:
                 from tqdm.auto import tqdm
-                bar = tqdm(total=len(pieces), unit="piece", desc="specpar estimate (dask)")
+                bar = tqdm(total=_rows(pieces), unit="row", unit_scale=True, desc="specpar estimate (dask)")
             total = {}
             try:
                 for fut in as_completed(list(futures)):
@@ -177,7 +187,7 @@ def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk
                         raise ValueError(f"partition {futures[fut]} failed {RETRIES + 1} times; "
                                          f"no output written: {msg}") from None
                     if bar is not None:
-                        bar.update(1)
+                        bar.update(fut.result()["rows"])
             finally:
                 if bar is not None:
                     bar.close()

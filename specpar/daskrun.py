@@ -198,10 +198,7 @@ def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk
         result = {}
 
         def writer(tmp_file):
-            import tempfile
-            with tempfile.TemporaryDirectory(prefix=f".{dst.name}.parts-", dir=dst.parent) as parts:
-                result.update(build(Path(parts)))
-                _join_parts([Path(parts) / rel for *_, rel in pieces], tmp_file)
+            result.update(_ordered_into_file(client, pieces, tmp_file, opts, chunk_rows, progress))
         atomic_write(dst, writer, inputs=[src], overwrite=overwrite)
         return result
     finally:
@@ -210,24 +207,81 @@ def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk
             cluster.close()
 
 
-def _join_parts(parts, out_path):
-    """Concatenate Parquet part files (in order) into one file, row group by row group."""
+class _TableSink:
+    """Collects a piece's blocks as Arrow tables (sent back to the client)."""
+
+    def __init__(self):
+        self.tables, self.meta = [], None
+
+    def write(self, frame, meta):
+        import pyarrow as pa
+        frame = frame.copy(deep=False)
+        frame.attrs = {}
+        self.tables.append(pa.Table.from_pandas(frame, preserve_index=False))
+        self.meta = meta
+
+    def close(self):
+        pass
+
+
+def _solve_piece_table(path, row_groups, opts, chunk_rows):
+    """Worker task: solve one piece and return (counts, metadata, Arrow table)."""
     import pyarrow as pa
-    import pyarrow.parquet as pq
-    writer, schema = None, None
+    from .stream import _parquet_blocks, _stream
+    total, empty, blocks = _parquet_blocks(path, chunk_rows, row_groups)
+    sink = _TableSink()
+    summary = _stream(blocks, sink, opts, 1, None, empty)
+    table = pa.concat_tables(sink.tables, promote_options="permissive")
+    return summary, sink.meta, table
+
+
+def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress):
+    """Solve the pieces of one file on the cluster and write them into one Parquet
+    file in order, as they come back; at most a few pieces are held at once."""
+    import json
+    import pyarrow as pa
+    n_workers = max(1, len(client.scheduler_info().get("workers", {})))
+    window = 2 * n_workers
+    futures, names = [], []
+    bar = None
+    if progress:
+        from tqdm.auto import tqdm
+        bar = tqdm(total=_rows(pieces), unit="row", unit_scale=True, desc="specpar estimate (dask)")
+
+    def submit(i):
+        name, path, groups, _ = pieces[i]
+        futures.append(client.submit(_solve_piece_table, path, groups, opts, chunk_rows, retries=RETRIES,
+                                     pure=False, key=f"specpar-{abs(hash((str(out_path), name)))}"))
+        names.append(name)
+
+    writer, schema, total = None, None, {}
     try:
-        for p in parts:
-            pf = pq.ParquetFile(str(p))
+        for i in range(min(window, len(pieces))):
+            submit(i)
+        for i in range(len(pieces)):
+            try:
+                summary, meta, table = futures[i].result()
+            except Exception as exc:
+                for f in futures[i:]:
+                    f.cancel()
+                msg = exc.args[0] if exc.args else exc
+                raise ValueError(f"partition {names[i]} failed {RETRIES + 1} times; no output written: {msg}") from None
+            futures[i] = None  # release the piece
+            if i + window < len(pieces):
+                submit(i + window)
             if writer is None:
-                schema = pf.schema_arrow
+                extra = {b"specpar": json.dumps(meta, sort_keys=True).encode()}
+                schema = table.schema.with_metadata({**(table.schema.metadata or {}), **extra})
+                schema = pa.schema([pa.field(f.name, pa.large_string()) if pa.types.is_null(f.type) else f
+                                    for f in schema], metadata=schema.metadata)
                 writer = parquet_writer(out_path, schema)
-            for i in range(pf.metadata.num_row_groups):
-                t = pf.read_row_group(i)
-                for c in schema.names:
-                    if c not in t.column_names:  # a result column only some pieces have
-                        t = t.append_column(pa.field(c, schema.field(c).type),
-                                            pa.nulls(t.num_rows, schema.field(c).type))
-                writer.write_table(t.select(schema.names).cast(schema))
+            writer.write_table(table.select(schema.names).cast(schema))
+            total = _combine(total, summary)
+            if bar is not None:
+                bar.update(summary["rows"])
     finally:
         if writer is not None:
             writer.close()
+        if bar is not None:
+            bar.close()
+    return total

@@ -117,7 +117,6 @@ def _csv_blocks(path, chunk_rows):
     conv = pcsv.ConvertOptions(null_values=[""], strings_can_be_null=True, quoted_strings_can_be_null=True)
     try:
         stream = pa.input_stream(str(path), compression="detect")
-        # skip leading comment lines (specpar's own metadata lines start with '#')
         reader = pcsv.open_csv(stream, read_options=read, parse_options=parse, convert_options=conv)
     except Exception as exc:
         raise ValueError(f"cannot read {path} as csv: {exc}") from None
@@ -133,11 +132,14 @@ def _csv_blocks(path, chunk_rows):
     return None, empty, gen()
 
 
-def _starts_with_comment(path) -> bool:
+def _needs_whole_reader(path) -> bool:
+    """A CSV whose first line is a comment or starts with a byte-order mark: the
+    whole-table reader (:func:`specpar.tableio.read_table`) knows how to take it."""
     import gzip
     opener = gzip.open if str(path).lower().endswith(".gz") else open
     with opener(path, "rt", encoding="utf-8", errors="replace") as fh:
-        return fh.readline().lstrip("\ufeff").startswith("#")
+        first = fh.readline()
+    return first.startswith(("#", "\ufeff"))
 
 
 # ----------------------------------------------------------------------------- writing
@@ -412,8 +414,8 @@ def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAU
             if bar is not None:
                 bar.close()
     fmt_in, fmt_out = guess_format(src, in_format), guess_format(dst, out_format)
-    if fmt_in == "csv" and src.is_file() and _starts_with_comment(src):
-        chunk_rows = 0  # comment lines before the header: the whole-table reader handles them
+    if fmt_in == "csv" and src.is_file() and _needs_whole_reader(src):
+        chunk_rows = 0
     if chunk_rows == 0 or fmt_in not in STREAM_FORMATS or fmt_out not in STREAM_FORMATS:
         table = read_table(src, in_format)
         out = run_estimate(table, replace(opts, progress=progress))

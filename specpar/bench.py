@@ -116,7 +116,7 @@ def _pyarrow_floor(src, dst) -> float:
 
 
 def run_benchmark(n_rows: int = 1_000_000, n_loop: int = 20_000, workdir=None, seed: int = 1,
-                  mixed: bool = False, threads: int = 1, chunk_rows: int = 100_000) -> dict:
+                  mixed: bool = False, threads=None, chunk_rows: int = 100_000) -> dict:
     """Time the streamed pipeline (Parquet in and out) and the per-row loop; print and return the figures.
 
     ``mixed`` uses :func:`synthetic_mixed` (11 bands, 3.1 per star) instead of

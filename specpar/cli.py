@@ -83,8 +83,8 @@ def _add_estimate_options(p):
     g = p.add_argument_group("large inputs (Parquet and CSV are streamed in blocks; a folder is a Parquet dataset)")
     g.add_argument("--chunk-rows", type=int, default=100_000, metavar="N",
                    help="rows per block (default 100000; 0 reads the table whole)")
-    g.add_argument("--threads", type=int, default=1, metavar="N",
-                   help="blocks solved at once in this process (default 1)")
+    g.add_argument("--threads", type=int, default=None, metavar="N",
+                   help="blocks solved at once in this process (default 2 on 2 or more cores, else 1)")
     g.add_argument("--engine", choices=("local", "dask"), default="local",
                    help="'dask' runs the blocks on a Dask cluster (default local)")
     g.add_argument("--workers", type=int, default=None, metavar="N",
@@ -171,7 +171,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--workdir", default=None, help="folder for the Parquet files (default: a temporary one)")
     p.add_argument("--mixed", action="store_true",
                    help="realistic mix: 11 bands, 3.1 per star on average (default: B and V only)")
-    p.add_argument("--threads", type=int, default=1, help="blocks solved at once (default 1)")
+    p.add_argument("--threads", type=int, default=None, help="blocks solved at once (default as for estimate)")
     p.add_argument("--dataset", action="store_true",
                    help="write --rows mixed rows as a Parquet dataset and time 'specpar estimate' on it "
                         "in a child process, reporting rows/s and peak memory")

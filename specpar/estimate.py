@@ -775,7 +775,11 @@ def run_estimate(table, opts: EstimateOptions):
     nodist = ~np.isfinite(fit["dm"])
     ebv, e_ebv, rv_used, e_rv, e_dm = fit["ebv"], fit["e_ebv"], fit["rv"], fit["e_rv"], fit["e_dm"]
     plx = 1000.0 / fit["d50"]
-    lum = np.where(rc.lcb == rc.lcf, rc.lcb, rc.lcb.astype(str) + "-" + rc.lcf.astype(str))
+    # class label built once per distinct (bright, faint) pair, then spread to the rows
+    lcode = _combine_codes(rc.lcb, rc.lcf)
+    first = np.unique(lcode, return_index=True)[1]
+    lb, lf = rc.lcb[first], rc.lcf[first]
+    lum = np.where(lb == lf, lb, lb.astype(str) + "-" + lf.astype(str)).astype(str)[lcode]
     results = {
         "sptnum": rc.sptnum, "e_sptnum": rc.e_spt, "lum_class": lum.astype(str),
         "mv": u.absmag[code, band_index("V")], "e_mv": np.sqrt(u.var_mv[code]),

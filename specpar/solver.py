@@ -125,16 +125,63 @@ def derivative_modes(absmag_deriv, e_sptnum) -> np.ndarray:
     return (np.nan_to_num(absmag_deriv) * np.nan_to_num(e_sptnum)[:, None])[:, None, :]
 
 
+def _cholesky_solve(C, B):
+    """``C^-1 B`` for a batch of small symmetric positive-definite matrices.
+
+    C : (n, k, k); B : (n, k, m). Cholesky factorisation and the two triangular
+    solves are written out element by element over k (k is small), so each row
+    is computed with the same operations whatever the batch, without the
+    per-matrix overhead of batched LAPACK calls on tiny matrices.
+    """
+    k = C.shape[1]
+    low = [[None] * k for _ in range(k)]
+    for j in range(k):
+        d = np.sqrt(C[:, j, j] - sum(low[j][p] * low[j][p] for p in range(j)))
+        low[j][j] = d
+        for i in range(j + 1, k):
+            low[i][j] = (C[:, i, j] - sum(low[i][p] * low[j][p] for p in range(j))) / d
+    z = [None] * k
+    for i in range(k):
+        z[i] = (B[:, i, :] - sum(low[i][p][:, None] * z[p] for p in range(i))) / low[i][i][:, None]
+    x = [None] * k
+    for i in reversed(range(k)):
+        x[i] = (z[i] - sum(low[p][i][:, None] * x[p] for p in range(i + 1, k))) / low[i][i][:, None]
+    return np.stack(x, axis=1)
+
+
+def _inverse_2x2(F):
+    """Inverse of a batch of 2x2 matrices (explicit formula)."""
+    det = F[:, 0, 0] * F[:, 1, 1] - F[:, 0, 1] * F[:, 1, 0]
+    inv = np.empty_like(F)
+    inv[:, 0, 0] = F[:, 1, 1] / det
+    inv[:, 1, 1] = F[:, 0, 0] / det
+    inv[:, 0, 1] = -F[:, 0, 1] / det
+    inv[:, 1, 0] = -F[:, 1, 0] / det
+    return inv
+
+
 def _normal_equations(A, CiA, Ciy, y, colour_known, mag_known):
     """Best fit, its covariance and chi-square from ``C^-1 A`` and ``C^-1 y``."""
-    F = np.einsum("nki,nkj->nij", A, CiA)
+    k = A.shape[1]
+    F = np.empty((A.shape[0], 2, 2))
+    for i in range(2):
+        for j in range(2):
+            F[:, i, j] = _dot(A[:, :, i], CiA[:, :, j], k)
     F[:, 1, 1] += np.where(colour_known, 0.0, _FIXED_E)
     F[:, 0, 0] += np.where(mag_known, 0.0, _FIXED_E)  # colours only: E(B-V) but no distance
-    b = np.einsum("nki,nk->ni", A, Ciy)
-    cov = np.linalg.inv(F)
-    theta = np.einsum("nij,nj->ni", cov, b)
-    chi2 = np.einsum("nk,nk->n", y, Ciy) - np.einsum("ni,ni->n", theta, b)
+    b0, b1 = _dot(A[:, :, 0], Ciy, k), _dot(A[:, :, 1], Ciy, k)
+    cov = _inverse_2x2(F)
+    theta = np.stack([cov[:, 0, 0] * b0 + cov[:, 0, 1] * b1, cov[:, 1, 0] * b0 + cov[:, 1, 1] * b1], axis=1)
+    chi2 = _dot(y, Ciy, k) - (theta[:, 0] * b0 + theta[:, 1] * b1)
     return theta, cov, np.maximum(chi2, 0.0)
+
+
+def _dot(a, b, k):
+    """Row-wise dot product of (n, k) arrays, summed in a fixed order over k."""
+    out = a[:, 0] * b[:, 0]
+    for p in range(1, k):
+        out = out + a[:, p] * b[:, p]
+    return out
 
 
 def _gls_group(y, A, C, u, sig_rv, colour_known, mag_known, free, keep_weights):
@@ -151,17 +198,19 @@ def _gls_group(y, A, C, u, sig_rv, colour_known, mag_known, free, keep_weights):
     ----------
     Sherman & Morrison 1950, Ann. Math. Stat. 21, 124 (rank-one inverse update).
     """
-    X = np.linalg.solve(C, np.concatenate([A, y[:, :, None], u[:, :, None]], axis=2))
+    X = _cholesky_solve(C, np.concatenate([A, y[:, :, None], u[:, :, None]], axis=2))
     CiA, Ciy, Ciu = X[:, :, :2], X[:, :, 2], X[:, :, 3]
     theta, cov, chi2 = _normal_equations(A, CiA, Ciy, y, colour_known, mag_known)
     second = bool(np.any(sig_rv > 0))
     if second:
         # second pass: the R_V term scales with E(B-V) itself
         c = (np.clip(theta[:, 1], 0.0, None) * sig_rv) ** 2
-        denom = 1.0 + c * np.einsum("nk,nk->n", u, Ciu)
+        k = u.shape[1]
+        denom = 1.0 + c * _dot(u, Ciu, k)
         g = c / denom
-        CiA = CiA - (g[:, None] * Ciu)[:, :, None] * np.einsum("nk,nki->ni", u, CiA)[:, None, :]
-        Ciy = Ciy - (g * np.einsum("nk,nk->n", u, Ciy))[:, None] * Ciu
+        uCiA = np.stack([_dot(u, CiA[:, :, 0], k), _dot(u, CiA[:, :, 1], k)], axis=1)
+        CiA = CiA - (g[:, None] * Ciu)[:, :, None] * uCiA[:, None, :]
+        Ciy = Ciy - (g * _dot(u, Ciy, k))[:, None] * Ciu
         Ciu = Ciu / denom[:, None]
         theta, cov, chi2 = _normal_equations(A, CiA, Ciy, y, colour_known, mag_known)
     e_rv = None
@@ -178,7 +227,7 @@ def _gls_group(y, A, C, u, sig_rv, colour_known, mag_known, free, keep_weights):
         e_rv = np.sqrt(cov3[:, 2, 2])
     W = None
     if keep_weights:
-        W = np.linalg.inv(C)
+        W = _cholesky_solve(C, np.broadcast_to(np.eye(C.shape[1]), C.shape))
         if second:
             z = X[:, :, 3]  # C^-1 u
             W = W - g[:, None, None] * z[:, :, None] * z[:, None, :]
@@ -218,9 +267,13 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
     SolverResult
     """
     N, K = obs.y.shape
+    # one set of coefficients for all stars: in observable space once
+    LR = obs.L @ np.asarray(R, float) if np.ndim(R) == 1 else None
+    LdR = obs.L @ np.asarray(dR, float) if np.ndim(dR) == 1 else None
     R = np.broadcast_to(np.asarray(R, float), (N, len(BANDS)))
     dR = np.broadcast_to(np.asarray(dR, float), (N, len(BANDS)))
     absmag = np.asarray(absmag, float)
+    per_code = codes is not None
     if codes is None:
         codes = np.arange(N)
     codes = np.asarray(codes, np.intp)
@@ -253,6 +306,13 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
     sub_modes = np.nan_to_num(sub_modes)
     l1_all = obs.L.sum(axis=1)
     LP_all = obs.L @ _P
+    if per_code:
+        # calibration covariance once per calibration row over all K observables;
+        # each star then takes the block of the observables it uses
+        ccal = _calibration_cov(np.broadcast_to(obs.L, (len(var_mv),) + obs.L.shape),
+                                np.broadcast_to(l1_all, (len(var_mv), K)),
+                                np.broadcast_to(LP_all, (len(var_mv),) + LP_all.shape),
+                                sub_modes, var_mv, var_colour)
     for rows, kidx in observable_groups(valid):
         k = kidx.shape[1]
         c = codes[rows]
@@ -261,9 +321,13 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
         sig = np.take_along_axis(obs.sigma[rows], kidx, axis=1)
         ydiff = y - np.take_along_axis(model[c], kidx, axis=1)
         l1 = l1_all[kidx]
-        A = np.stack([l1, np.einsum("nkb,nb->nk", Lg, R[rows])], axis=-1)
-        u = np.einsum("nkb,nb->nk", Lg, dR[rows])
-        C = _calibration_cov(Lg, l1, LP_all[kidx], sub_modes[c], var_mv[c], var_colour[c])
+        a1 = LR[kidx] if LR is not None else np.einsum("nkb,nb->nk", Lg, R[rows])
+        A = np.stack([l1, a1], axis=-1)
+        u = LdR[kidx] if LdR is not None else np.einsum("nkb,nb->nk", Lg, dR[rows])
+        if per_code:
+            C = ccal[c[:, None, None], kidx[:, :, None], kidx[:, None, :]]
+        else:
+            C = _calibration_cov(Lg, l1, LP_all[kidx], sub_modes[c], var_mv[c], var_colour[c])
         C[:, np.arange(k), np.arange(k)] += sig ** 2
         th, cv, c2, erv, Wg = _gls_group(ydiff, A, C, u, sig_rv[rows], colour_known[rows],
                                          mag_known[rows], free[rows], keep_weights)

@@ -333,7 +333,13 @@ def _combine(a, b):
     return {k: a.get(k, 0) + b.get(k, 0) for k in ("rows", "with_distance", "flagged")}
 
 
-def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAULT_CHUNK_ROWS, threads=1,
+def default_threads() -> int:
+    """Blocks solved at once by default: two where there are two cores or more
+    (one block is read and written while the other is solved)."""
+    return min(2, os.cpu_count() or 1)
+
+
+def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAULT_CHUNK_ROWS, threads=None,
                   engine="local", workers=None, scheduler=None, overwrite=False, progress=False, **options):
     """Spectroscopic-parallax distances for every row of a file or Parquet dataset.
 
@@ -350,8 +356,9 @@ def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAU
     chunk_rows : int
         Rows per block (default 100,000); 0 reads and writes the table whole.
         Parquet and CSV are streamed; other formats are read or written whole.
-    threads : int
-        Blocks solved at once in threads of this process (default 1).
+    threads : int, optional
+        Blocks solved at once in threads of this process (default: 2 where
+        there are 2 cores or more, else 1); the results do not depend on it.
     engine : {"local", "dask"}
         ``"dask"`` runs the blocks on a Dask cluster (see :func:`specpar.daskrun.estimate_file_dask`).
     workers : int, optional
@@ -378,6 +385,7 @@ def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAU
     opts = make_options(**{k: v for k, v in options.items() if k != "progress"})
     if not (isinstance(chunk_rows, (int, np.integer)) and chunk_rows >= 0):
         raise ValueError(f"chunk_rows must be an integer >= 0 (0 = whole table), got {chunk_rows!r}")
+    threads = default_threads() if threads is None else threads
     if not (isinstance(threads, (int, np.integer)) and threads >= 1):
         raise ValueError(f"threads must be an integer >= 1, got {threads!r}")
     if engine not in ("local", "dask"):

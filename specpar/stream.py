@@ -207,7 +207,7 @@ class _CsvSink:
             self.fh.close()
 
 
-def _conform(out: pd.DataFrame, columns: list | None, src_columns) -> pd.DataFrame:
+def _conform(out: pd.DataFrame, columns: list | None) -> pd.DataFrame:
     """The same columns in every block: a Cepheid-only result column absent from a
     block without Cepheids is added empty."""
     if columns is None:
@@ -243,7 +243,7 @@ def _stream(blocks, sink, opts, threads, bar, empty):
             if "period0_d" in columns and "period0_d" not in meta.get("columns", {}):
                 meta.setdefault("columns", {})["period0_d"] = \
                     "fundamental-mode pulsation period used (first overtones converted)"
-        out = _conform(out, columns, src_columns)
+        out = _conform(out, columns)
         sink.write(out, meta)
         flags = out["flags"].to_numpy()
         summary["rows"] += len(out)

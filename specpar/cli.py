@@ -8,7 +8,7 @@ from . import __version__
 from .bands import BAND_NAMES
 from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
 from .estimate import MAX_MAG_ERROR
-from .tableio import FORMATS
+from .tableio import FORMATS, check_output
 
 __all__ = ["main"]
 
@@ -90,37 +90,46 @@ def _add_estimate_options(p):
                         "(Bailer-Jones 2015; default 1350 pc)")
     p.add_argument("--overwrite", action="store_true", help="replace the output file if it exists")
     p.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+    g = p.add_argument_group("large inputs (Parquet and CSV are streamed in blocks; a folder is a Parquet dataset)")
+    g.add_argument("--chunk-rows", type=int, default=100_000, metavar="N",
+                   help="rows per block (default 100000; 0 reads the table whole)")
+    g.add_argument("--threads", type=int, default=None, metavar="N",
+                   help="blocks solved at once in this process (default 2 on 2 or more cores, else 1)")
+    g.add_argument("--engine", choices=("local", "dask"), default="local",
+                   help="'dask' runs the blocks on a Dask cluster (default local)")
+    g.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="dask: workers of the local cluster started for the run (default: one per core)")
+    g.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="dask: address of a running scheduler, e.g. tcp://127.0.0.1:8786")
 
 
 def _cmd_estimate(args):
     from .columns import describe_mapping
-    from .estimate import estimate
-    from .tableio import check_columns_writable, check_output, read_table, write_table
+    from .stream import estimate_file, is_dataset
     inputs = [args.input, *(args.calibration or ())]
     # everything about the output is checked before reading and computing
-    fmt = check_output(args.output, args.out_format, inputs=inputs, overwrite=args.overwrite)
+    # (a dataset folder or a Dask run publishes a folder or file of its own, checked there)
+    if not (is_dataset(args.input) or args.engine == "dask"):
+        check_output(args.output, args.out_format, inputs=inputs, overwrite=args.overwrite)
     if args.max_field_length is not None and args.max_field_length < 1:
         raise ValueError(f"--max-field-length must be >= 1 character, got {args.max_field_length}")
-    table = read_table(args.input, args.in_format, hdu=args.hdu)
-    check_columns_writable(table, fmt, args.max_field_length)
-    out = estimate(
-        table, law=args.law, rv=args.rv, sigma_rv=args.sigma_rv, fit_rv=args.fit_rv,
+    summary = estimate_file(
+        args.input, args.output, in_format=args.in_format, out_format=args.out_format,
+        chunk_rows=args.chunk_rows, threads=args.threads, engine=args.engine, workers=args.workers,
+        scheduler=args.scheduler, overwrite=args.overwrite, progress=not args.quiet,
+        hdu=args.hdu, max_field_length=args.max_field_length,
+        law=args.law, rv=args.rv, sigma_rv=args.sigma_rv, fit_rv=args.fit_rv,
         method="mc" if args.mc else "analytic", n_draws=args.mc or 1000, seed=args.seed,
         default_error=args.default_error, calibrations=tuple(args.calibration or ()),
-        columns=column_map(args.col), progress=not args.quiet, explain=args.explain,
+        columns=column_map(args.col), explain=args.explain,
         plx_offset=args.plx_offset, plx_error_scale=args.plx_error_scale, tension=args.tension,
         length_scale_pc=args.length_scale, max_error=args.max_error)
-    write_table(out, args.output, fmt, inputs=inputs, overwrite=args.overwrite,
-                max_field_length=args.max_field_length)
     if not args.quiet:
-        n = len(out)
-        ok = int((out["flags"] & 256 == 0).sum())
-        flagged = int((out["flags"] != 0).sum())
-        meta = (out.meta if hasattr(out, "colnames") else out.attrs).get("specpar", {})
-        mapping = describe_mapping(meta.get("column_mapping") or {})
+        mapping = describe_mapping(summary.get("column_mapping") or {})
         stream = sys.stderr if args.output == "-" else sys.stdout
-        print(f"specpar: {n} rows -> {args.output}: {ok} with a distance, {flagged} flagged "
-              f"(see the 'note' column)" + (f"; columns used: {mapping}" if mapping else ""), file=stream)
+        print(f"specpar: {summary['rows']} rows -> {args.output}: {summary['with_distance']} with a distance, "
+              f"{summary['flagged']} flagged (see the 'note' column)"
+              + (f"; columns used: {mapping}" if mapping else ""), file=stream)
     return 0
 
 
@@ -158,8 +167,12 @@ def _cmd_calibrate(args):
 
 
 def _cmd_bench(args):
-    from .bench import run_benchmark
-    run_benchmark(n_rows=args.rows, n_loop=args.loop_rows, workdir=args.workdir)
+    from .bench import run_benchmark, run_dataset_benchmark
+    if args.dataset:
+        run_dataset_benchmark(n_rows=args.rows, workdir=args.workdir)
+    else:
+        run_benchmark(n_rows=args.rows, n_loop=args.loop_rows, workdir=args.workdir, mixed=args.mixed,
+                      threads=args.threads)
     return 0
 
 
@@ -225,6 +238,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--loop-rows", type=int, default=20_000,
                    help="rows for the plain per-row Python comparison (default 20000)")
     p.add_argument("--workdir", default=None, help="folder for the Parquet files (default: a temporary one)")
+    p.add_argument("--mixed", action="store_true",
+                   help="realistic mix: 11 bands, 3.1 per star on average (default: B and V only)")
+    p.add_argument("--threads", type=int, default=None, help="blocks solved at once (default as for estimate)")
+    p.add_argument("--dataset", action="store_true",
+                   help="write --rows mixed rows as a Parquet dataset and time 'specpar estimate' on it "
+                        "in a child process, reporting rows/s and peak memory")
     p.set_defaults(func=_cmd_bench)
     _register_optional(sub)
     return parser
@@ -243,6 +262,10 @@ def main(args=None) -> int:
     except (ValueError, TypeError, OSError, KeyError) as exc:
         msg = exc.args[0] if isinstance(exc, KeyError) and exc.args else exc
         print(f"specpar: error: {msg}", file=sys.stderr)
+        return 1
+    except MemoryError:
+        print("specpar: error: out of memory; use smaller blocks (--chunk-rows) or fewer draws (--mc)",
+              file=sys.stderr)
         return 1
     except KeyboardInterrupt:
         print("specpar: interrupted", file=sys.stderr)

@@ -25,7 +25,8 @@ from .extinction import (DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check
                          coefficient_derivative, rv_limits)
 from .flags import Flag, describe, flag_names
 from .mcdraws import normal_draws, row_keys
-from .solver import Observables, derivative_modes, dm_to_pc, fit_draws, solve
+from .solver import (Observables, derivative_modes, dm_to_pc, fit_draws_compact, observable_groups,
+                     solve)
 from .sptype import parse_sptypes
 
 __all__ = ["estimate", "EstimateOptions", "OUTPUT_COLUMNS"]
@@ -343,14 +344,14 @@ def prepare_observables(frame_in: pd.DataFrame, opts: EstimateOptions) -> Prepar
 
 # ----------------------------------------------------------------------------- solving
 
-def _free_rv(obs, cal, modes, law):
+def _free_rv(obs, cal, modes, law, codes=None):
     """Per-star R_V from the chi-square profile on a grid (vectorised over stars)."""
     lo, hi = rv_limits(law)
     grid = np.round(np.arange(lo, hi + 1e-9, 0.1), 3)
     coeffs = band_coefficients(law, grid)
     chi2 = np.empty((len(grid), obs.y.shape[0]))
     for i, R in enumerate(coeffs):  # loop over the R_V grid, not over stars
-        r = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, 0 * R)
+        r = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, 0 * R, codes=codes)
         chi2[i] = np.nan_to_num(r.chi2, nan=np.inf)
     i0 = np.clip(np.argmin(chi2, axis=0), 1, len(grid) - 2)
     n = np.arange(chi2.shape[1])
@@ -401,17 +402,19 @@ def _subtype_modes(cals, parsed, nominal):
     return np.sqrt(_GH_W)[None, :, None] * np.nan_to_num(dev)
 
 
-def _solve_chunk(obs, cal, modes, opts):
+def _solve_chunk(obs, cal, modes, opts, codes=None):
+    """Analytic fit of a block of rows; ``cal``/``modes`` hold one row per
+    calibration code (``codes``, default one per row)."""
     N = obs.y.shape[0]
     rv = np.full(N, float(opts.rv))
     sig_rv = np.full(N, float(opts.sigma_rv))
     rv_flag = np.zeros(N, bool)
     free = None
+    args = (obs, cal.absmag, modes, cal.var_mv, cal.var_colour)
     if opts.fit_rv:
-        rv_fit, e_fit = _free_rv(obs, cal, modes, opts.law)
-        base = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour,
-                     band_coefficients(opts.law, opts.rv), coefficient_derivative(opts.law, opts.rv),
-                     opts.sigma_rv, opts.rv)
+        rv_fit, e_fit = _free_rv(obs, cal, modes, opts.law, codes)
+        base = solve(*args, band_coefficients(opts.law, opts.rv), coefficient_derivative(opts.law, opts.rv),
+                     opts.sigma_rv, opts.rv, codes=codes)
         n_mag = (np.isfinite(obs.y) & obs.is_magnitude).sum(axis=1)
         free = (e_fit < 1.0) & (n_mag >= 3) & (base.ebv > 3 * base.e_ebv)
         rv = np.where(free, rv_fit, rv)
@@ -421,35 +424,78 @@ def _solve_chunk(obs, cal, modes, opts):
     else:
         R, dR = band_coefficients(opts.law, opts.rv), coefficient_derivative(opts.law, opts.rv)
     keep = opts.method == "mc"
-    res = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv, rv_free=free,
-                keep_weights=keep)
+    res = solve(*args, R, dR, sig_rv, rv, rv_free=free, keep_weights=keep, codes=codes)
     if opts.fit_rv:
         weak = free & ~(res.e_rv < 1.0)  # R_V not pinned down once dm and E(B-V) are free too
         if weak.any():
             free &= ~weak
             rv, sig_rv = np.where(weak, opts.rv, rv), np.where(weak, opts.sigma_rv, sig_rv)
             R, dR = coefficients_at(opts.law, rv)
-            res = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, dR, sig_rv, rv, rv_free=free,
-                        keep_weights=keep)
+            res = solve(*args, R, dR, sig_rv, rv, rv_free=free, keep_weights=keep, codes=codes)
             rv_flag = ~free
     return res, rv_flag
 
 
-def _monte_carlo(obs, cal, modes, cals, sptnum, e_spt, lcb, lcf, keys, res, opts):
-    """Monte Carlo: redraw photometry, subtype, M_V and colour scatter and R_V; refit."""
+#: Monte Carlo work per batch: rows x draws held in memory at once.
+MC_BATCH_DRAWS = 200_000
+#: Memory one batch of Monte Carlo draws may take (bytes); a request whose single
+#: star needs more is refused with a clear message instead of running out of memory.
+MC_MEMORY_BUDGET = 2 * 1024 ** 3
+
+
+def _mc_bytes_per_star(n_draws, k):
+    """Rough peak memory of the Monte Carlo draws of one star with k observables."""
+    return int(n_draws) * 8 * (6 * k + 24)
+
+
+def _nan_percentiles(d, qs):
+    """Per-row percentiles (linear interpolation) ignoring NaN, as ``np.nanpercentile``
+    with its default method, through one sort per row."""
+    s = np.sort(d, axis=1)  # NaN sort last
+    c = np.isfinite(s).sum(axis=1)
+    out = []
+    rows = np.arange(s.shape[0])
+    for q in qs:
+        pos = q / 100.0 * np.maximum(c - 1, 0)
+        lo = np.floor(pos).astype(np.intp)
+        hi = np.minimum(lo + 1, np.maximum(c - 1, 0))
+        t = pos - lo
+        a, b = s[rows, lo], s[rows, hi]
+        v = np.where(t >= 0.5, b - (b - a) * (1 - t), a + (b - a) * t)
+        out.append(np.where(c > 0, v, np.nan))
+    return out
+
+
+def _monte_carlo(obs, cal, modes, cals, sptnum, e_spt, lcb, lcf, keys, res, opts, codes=None):
+    """Monte Carlo: redraw photometry, subtype, M_V and colour scatter and R_V; refit.
+
+    Each star is refitted with its nominal fit's weights held fixed, on the
+    observables that fit used only (rows grouped by their number of
+    observables, as in :func:`specpar.solver.solve`). Draws are made in
+    batches of rows, so memory is bounded by :data:`MC_BATCH_DRAWS`, not by
+    the number of rows. ``cal`` holds one row per calibration code
+    (``codes``, default one per star). The draws of a star depend only on
+    its row key, the seed and the component (see :mod:`specpar.mcdraws`).
+    """
     N, K = obs.y.shape
-    n = opts.n_draws
+    n = int(opts.n_draws)
+    codes = np.arange(N) if codes is None else np.asarray(codes, np.intp)
+    per_star = _mc_bytes_per_star(n, K)
+    if per_star > MC_MEMORY_BUDGET:
+        most = MC_MEMORY_BUDGET // _mc_bytes_per_star(1, K)
+        raise ValueError(f"{n} Monte Carlo draws per star need about {per_star / 1024 ** 3:.1f} GB for "
+                         f"one star with {K} observables; at most {most} draws fit in the "
+                         f"{MC_MEMORY_BUDGET / 1024 ** 3:.0f} GB budget: ask for fewer draws (--mc)")
     out = {k: np.full(N, np.nan) for k in ("dm", "e_dm", "ebv", "e_ebv", "d50", "d16", "d84", "corr")}
-    step = max(1, 100_000 // n)
-    comp = iter(range(1, 10_000))
-    z_phot = [normal_draws(keys, opts.seed, next(comp), n) for _ in range(K)]
-    z_mv = normal_draws(keys, opts.seed, next(comp), n)
-    z_col = [normal_draws(keys, opts.seed, next(comp), n) for _ in CALIBRATION_COLOURS]
-    z_spt = normal_draws(keys, opts.seed, next(comp), n)
-    z_rv = normal_draws(keys, opts.seed, next(comp), n)
+    ncol = len(CALIBRATION_COLOURS)
+    # random components, numbered as they always were: photometry 1..K, M_V, colours, subtype, R_V
+    c_mv, c_col, c_spt, c_rv = K + 1, K + 2 + np.arange(ncol), K + 2 + ncol, K + 3 + ncol
     lo_rv, hi_rv = rv_limits(opts.law)
+    L = obs.L
+    touches = (L != 0).T.astype(float)  # (nb, K)
+    l1, LP = L.sum(axis=1), L @ _P  # (K,), (K, ncol)
     # the calibration along each distinct type's subtype distribution, tabulated once
-    # at z = -6..6 sigma and interpolated linearly per draw
+    # at z = -6..6 sigma and interpolated linearly per draw; kept in observable space
     own = ~np.isin(lcb, list(cals.by_class))  # e.g. period-luminosity rows: each row its own relation
     ucode = _combine_codes(sptnum, e_spt, lcb, lcf, np.where(own, np.arange(N), -1))
     first = np.unique(ucode, return_index=True)[1]
@@ -460,46 +506,96 @@ def _monte_carlo(obs, cal, modes, cals, sptnum, e_spt, lcb, lcf, keys, res, opts
     table = cals.evaluate(x.ravel(), np.repeat(lcb[first], G), np.repeat(lcf[first], G)).absmag
     table = table.reshape(first.size, G, len(BANDS))
     linear = own[first]
-    table[linear] = (cal.absmag[first][linear, None, :]
-                     + cal.dabsmag[first][linear, None, :] * (e_spt[first][linear, None] * zg[None])[:, :, None])
-    starts = range(0, N, step)
+    fc = codes[first]
+    table[linear] = (cal.absmag[fc][linear, None, :]
+                     + cal.dabsmag[fc][linear, None, :] * (e_spt[first][linear, None] * zg[None])[:, :, None])
+    # a band without calibration must not poison the others through NaN * 0
+    tab_obs = np.where(np.isnan(table) @ touches > 0, np.nan, np.nan_to_num(table) @ L.T)  # (U, G, K)
+    tab_flat = tab_obs.ravel()
+    # extinction coefficients on the R_V grid of coefficients_at, in observable space
+    rgrid = np.round(np.arange(lo_rv, hi_rv + 1e-9, 0.05), 3)
+    rtab = band_coefficients(opts.law, rgrid) @ L.T  # (n_rv, K)
+    rslope = (rtab[1:] - rtab[:-1]) / (rgrid[1:] - rgrid[:-1])[:, None]
+    rstep = (rgrid[-1] - rgrid[0]) / (rgrid.size - 1)
+    sd_mv = np.sqrt(np.nan_to_num(cal.var_mv))
+    sd_col = np.sqrt(np.nan_to_num(cal.var_colour))
+    n_done = 0
+    bar = None
     if opts.progress and N * n > 2_000_000:
         from tqdm.auto import tqdm
-        starts = tqdm(starts, unit="batch", desc="specpar Monte Carlo")
-    for s in starts:
-        sl = slice(s, min(N, s + step))
-        m = sl.stop - sl.start
-        pos = (np.clip(z_spt[sl], zg[0], zg[-1]) - zg[0]) / (zg[1] - zg[0])
-        j0 = np.minimum(pos.astype(int), G - 2)
-        frac = (pos - j0)[:, :, None]
-        rows = ucode[sl, None]
-        drawn = (table[rows, j0] * (1.0 - frac) + table[rows, j0 + 1] * frac).reshape(m * n, -1)
-        dmv = (np.sqrt(np.nan_to_num(cal.var_mv[sl]))[:, None] * z_mv[sl]).ravel()
-        dcol = np.stack([(np.sqrt(np.nan_to_num(cal.var_colour[sl, c]))[:, None] * z_col[c][sl]).ravel()
-                         for c in range(len(CALIBRATION_COLOURS))], axis=-1)
-        absmag = drawn + dmv[:, None] + dcol @ _P.T
-        rv_d = np.clip((res.rv[sl, None] + res.e_rv[sl, None] * z_rv[sl]).ravel(), lo_rv, hi_rv)
-        R, _ = coefficients_at(opts.law, rv_d)
-        y_d = obs.y[sl, None, :] + obs.sigma[sl, None, :] * np.stack([z[sl] for z in z_phot], axis=-1)
-        # a band without calibration must not poison the others through NaN * 0
-        missing = (np.isnan(absmag).astype(float) @ (obs.L != 0).T.astype(float)) > 0
-        model = np.where(missing, np.nan, np.nan_to_num(absmag) @ obs.L.T)
-        ydiff = y_d - model.reshape(m, n, K)
-        A = np.stack([np.broadcast_to(obs.L.sum(axis=1), (m, n, K)), (R @ obs.L.T).reshape(m, n, K)], axis=-1)
-        # the weights of the star's nominal fit, held fixed over its draws
-        theta = fit_draws(res.weights[sl], res.valid[sl], res.colour_known[sl], res.mag_known[sl], ydiff, A)
-        dm, eb = theta[..., 0], theta[..., 1]
-        with np.errstate(invalid="ignore"), warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows give NaN, as wanted
-            out["dm"][sl] = np.nanmean(dm, axis=1)
-            out["e_dm"][sl] = np.nanstd(dm, axis=1)
-            out["ebv"][sl] = np.nanmean(eb, axis=1)
-            out["e_ebv"][sl] = np.nanstd(eb, axis=1)
-            d = dm_to_pc(dm)
-            out["d16"][sl], out["d50"][sl], out["d84"][sl] = np.nanpercentile(d, [16, 50, 84], axis=1)
-            dmc, ebc = dm - out["dm"][sl, None], eb - out["ebv"][sl, None]
-            out["corr"][sl] = np.nanmean(dmc * ebc, axis=1) / (out["e_dm"][sl] * out["e_ebv"][sl])
+        bar = tqdm(total=N, unit="row", desc="specpar Monte Carlo")
+    for grows, gkidx in observable_groups(res.valid):
+        k = gkidx.shape[1]
+        step = max(1, MC_BATCH_DRAWS // (n * max(k, 1)))
+        for s in range(0, grows.size, step):
+            b, kidx = grows[s:s + step], gkidx[s:s + step]
+            m = b.size
+            kb = keys[b]
+            # subtype draw: calibration read along the tabulated subtype distribution
+            pos = (np.clip(normal_draws(kb, opts.seed, c_spt, n), zg[0], zg[-1]) - zg[0]) / (zg[1] - zg[0])
+            j0 = np.minimum(pos.astype(int), G - 2)
+            frac = (pos - j0)[:, :, None]
+            at = ((ucode[b][:, None, None] * G + j0[:, :, None]) * K + kidx[:, None, :])  # (m, n, k)
+            ta, tb = tab_flat[at], tab_flat[at + K]
+            model = ta * (1.0 - frac) + tb * frac
+            # M_V scatter moves every band alike; colour scatter moves the bands downstream
+            c = codes[b]
+            model += (sd_mv[c][:, None] * normal_draws(kb, opts.seed, c_mv, n))[:, :, None] * l1[kidx][:, None, :]
+            LPg = LP[kidx]  # (m, k, ncol)
+            for ci in range(ncol):
+                need = np.flatnonzero((sd_col[c, ci] > 0) & (LPg[:, :, ci] != 0).any(axis=1))
+                if need.size:
+                    z = sd_col[c[need], ci][:, None] * normal_draws(kb[need], opts.seed, c_col[ci], n)
+                    model[need] += z[:, :, None] * LPg[need, None, :, ci]
+            # photometry: each observable keeps its own random component
+            y = np.take_along_axis(obs.y[b], kidx, axis=1)
+            sig = np.take_along_axis(obs.sigma[b], kidx, axis=1)
+            ydiff = np.empty((m, n, k))
+            for slot in range(k):
+                ydiff[:, :, slot] = y[:, slot, None] - model[:, :, slot]
+            for kk in np.unique(kidx):
+                r, slot = np.nonzero(kidx == kk)
+                z = normal_draws(kb[r], opts.seed, 1 + int(kk), n)
+                ydiff[r, :, slot] += sig[r, slot][:, None] * z
+            # R_V draw: coefficients interpolated on the grid, in observable space
+            rv_d = np.clip(res.rv[b, None] + res.e_rv[b, None] * normal_draws(kb, opts.seed, c_rv, n),
+                           lo_rv, hi_rv)
+            j = np.clip(((rv_d - rgrid[0]) / rstep).astype(np.intp), 0, rgrid.size - 2)
+            dx = (rv_d - rgrid[j])[:, :, None]
+            at = j[:, :, None] * K + kidx[:, None, :]
+            a1 = rslope.ravel()[at] * dx + rtab.ravel()[at]
+            a0 = l1[kidx]  # (m, k)
+            W = res.weights[b[:, None, None], kidx[:, :, None], kidx[:, None, :]]  # (m, k, k)
+            theta = fit_draws_compact(W, res.colour_known[b], res.mag_known[b], ydiff, a0, a1)
+            _mc_summary(out, b, theta)
+            n_done += m
+            if bar is not None:
+                bar.update(m)
+    nodata = ~res.valid.any(axis=1)
+    # rows without data: what the padded refit always gave them (a zero solution)
+    for key in ("dm", "e_dm", "ebv", "e_ebv"):
+        out[key][nodata] = 0.0
+    for key in ("d50", "d16", "d84"):
+        out[key][nodata] = dm_to_pc(0.0)
+    if bar is not None:
+        bar.update(N - n_done)
+        bar.close()
     return out
+
+
+def _mc_summary(out, b, theta):
+    """Mean, scatter and distance percentiles of the draws of rows ``b``."""
+    dm, eb = theta[..., 0], theta[..., 1]
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows give NaN, as wanted
+        out["dm"][b] = np.nanmean(dm, axis=1)
+        out["e_dm"][b] = np.nanstd(dm, axis=1)
+        out["ebv"][b] = np.nanmean(eb, axis=1)
+        out["e_ebv"][b] = np.nanstd(eb, axis=1)
+        d = dm_to_pc(dm)
+        out["d16"][b], out["d50"][b], out["d84"][b] = _nan_percentiles(d, (16, 50, 84))
+        dmc, ebc = dm - out["dm"][b, None], eb - out["ebv"][b, None]
+        out["corr"][b] = np.nanmean(dmc * ebc, axis=1) / (out["e_dm"][b] * out["e_ebv"][b])
 
 
 # ----------------------------------------------------------------------------- output
@@ -707,15 +803,15 @@ def _solve_rows(frame, prep, rc, cals, opts) -> dict:
         chunks = tqdm(chunks, total=len(chunks), unit="chunk", desc="specpar estimate")
     for s in chunks:
         sl = slice(s, min(N, s + CHUNK))
-        cal, modes = rc.rows(sl)
+        codes = rc.code[sl]
         obs = Observables(prep.obs.y[sl], prep.obs.sigma[sl], prep.obs.L)
-        r, rv_flag = _solve_chunk(obs, cal, modes, opts)
+        r, rv_flag = _solve_chunk(obs, rc.ucal, rc.modes, opts, codes)
         part = {k: getattr(r, k) for k in ("dm", "e_dm", "ebv", "e_ebv", "corr", "rv", "e_rv", "n_used",
                                             "colour_known", "chi2", "dof", "uncalibrated")}
         part.update(rv_flag=rv_flag)
         if opts.method == "mc":
-            mc = _monte_carlo(obs, cal, modes, cals, rc.sptnum[sl], rc.e_spt[sl], rc.lcb[sl],
-                              rc.lcf[sl], row_keys(frame.iloc[sl]), r, opts)
+            mc = _monte_carlo(obs, rc.ucal, rc.modes, cals, rc.sptnum[sl], rc.e_spt[sl], rc.lcb[sl],
+                              rc.lcf[sl], row_keys(frame.iloc[sl]), r, opts, codes)
             part.update(_merge_monte_carlo(mc, r))
         else:
             part.update(d50=dm_to_pc(r.dm), d16=dm_to_pc(r.dm - r.e_dm), d84=dm_to_pc(r.dm + r.e_dm))
@@ -821,7 +917,11 @@ def run_estimate(table, opts: EstimateOptions):
     nodist = ~np.isfinite(fit["dm"])
     ebv, e_ebv, rv_used, e_rv, e_dm = fit["ebv"], fit["e_ebv"], fit["rv"], fit["e_rv"], fit["e_dm"]
     plx = 1000.0 / fit["d50"]
-    lum = np.where(rc.lcb == rc.lcf, rc.lcb, rc.lcb.astype(str) + "-" + rc.lcf.astype(str))
+    # class label built once per distinct (bright, faint) pair, then spread to the rows
+    lcode = _combine_codes(rc.lcb, rc.lcf)
+    first = np.unique(lcode, return_index=True)[1]
+    lb, lf = rc.lcb[first], rc.lcf[first]
+    lum = np.where(lb == lf, lb, lb.astype(str) + "-" + lf.astype(str)).astype(str)[lcode]
     results = {
         "sptnum": rc.sptnum, "e_sptnum": rc.e_spt, "lum_class": lum.astype(str),
         "mv": u.absmag[code, band_index("V")], "e_mv": np.sqrt(u.var_mv[code]),

@@ -9,6 +9,8 @@ inverse normal CDF (scipy.special.ndtri).
 """
 from __future__ import annotations
 
+from functools import lru_cache
+
 import numpy as np
 import pandas as pd
 from scipy.special import ndtri
@@ -35,11 +37,33 @@ def row_keys(frame: pd.DataFrame) -> np.ndarray:
     return pd.util.hash_pandas_object(frame.astype(str), index=False).to_numpy(np.uint64)
 
 
+def _mix_inplace(x: np.ndarray) -> np.ndarray:
+    """:func:`_mix` on a large array, overwriting it (same bits, fewer temporaries)."""
+    with np.errstate(over="ignore"):
+        x += _GOLDEN
+        x ^= x >> np.uint64(30)
+        x *= _M1
+        x ^= x >> np.uint64(27)
+        x *= _M2
+        x ^= x >> np.uint64(31)
+    return x
+
+
+@lru_cache(maxsize=8)
+def _draw_index_hash(n_draws: int) -> np.ndarray:
+    h = _mix(np.arange(n_draws, dtype=np.uint64) + np.uint64(1_000_003))
+    h.setflags(write=False)
+    return h
+
+
 def normal_draws(keys: np.ndarray, seed: int, component: int, n_draws: int) -> np.ndarray:
     """(len(keys), n_draws) standard normals for one random component."""
     base = _mix(np.uint64(seed & 0xFFFFFFFFFFFFFFFF) ^ _mix(np.uint64(component)))
     k = _mix(keys.astype(np.uint64) ^ base)[:, None]
-    j = np.arange(n_draws, dtype=np.uint64)[None, :]
-    u = (_mix(k ^ _mix(j + np.uint64(1_000_003))) >> np.uint64(11)).astype(np.float64)
-    u = (u + 0.5) * 2.0 ** -53
-    return ndtri(u)
+    x = np.bitwise_xor(k, _draw_index_hash(int(n_draws))[None, :])
+    _mix_inplace(x)
+    x >>= np.uint64(11)
+    u = x.astype(np.float64)
+    u += 0.5
+    u *= 2.0 ** -53
+    return ndtri(u, out=u)

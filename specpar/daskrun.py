@@ -1,0 +1,287 @@
+"""Running :func:`specpar.estimate` on a Dask cluster.
+
+Two entry points:
+
+- :func:`estimate_dask` takes a ``dask.dataframe.DataFrame`` and returns one
+  (lazy) with the results appended, computed partition by partition;
+- :func:`estimate_file_dask` (``specpar estimate --engine dask``) reads a
+  Parquet file or dataset in pieces of row groups, lets every worker solve
+  and write its own piece, and publishes the output atomically.
+
+Every worker runs the same per-block function as a single process
+(:func:`specpar.stream.estimate_frame`) with the same options, and every
+row's result depends only on that row and the options (Monte Carlo draws are
+keyed on the row's content, :mod:`specpar.mcdraws`), so the results equal the
+single-process run bit for bit. A failed piece is retried once; if it fails
+again the run stops with the piece's name and leaves no output under the
+final name.
+"""
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import pandas as pd
+
+from .stream import (DEFAULT_CHUNK_ROWS, _combine, _run_file, dataset_files, estimate_frame, is_dataset,
+                     make_options, parquet_writer, publish_folder)
+from .tableio import atomic_write, guess_format
+
+__all__ = ["estimate_dask", "estimate_file_dask", "connect"]
+
+#: How many times a failed piece is tried again before the run stops.
+RETRIES = 1
+
+
+def _require_dask():
+    try:
+        import dask  # noqa: F401
+        import distributed  # noqa: F401
+    except ModuleNotFoundError:
+        raise ValueError("the dask engine needs dask and distributed: pip install 'dask[distributed]' "
+                         "(or use the default engine, --engine local)") from None
+
+
+def connect(workers=None, scheduler=None):
+    """A ``distributed.Client``: to ``scheduler`` if given, else a new local
+    cluster of ``workers`` single-threaded worker processes (default: one per core).
+
+    Returns (client, cluster); cluster is None for an existing scheduler.
+    """
+    _require_dask()
+    from distributed import Client, LocalCluster
+    if scheduler is not None:
+        if workers is not None:
+            raise ValueError("give either a scheduler address or a number of local workers, not both")
+        try:
+            return Client(scheduler, timeout="20s"), None
+        except Exception as exc:
+            raise ValueError(f"cannot reach the Dask scheduler at {scheduler!r}: {exc}; start one with "
+                             f"'dask scheduler' and workers with 'dask worker {scheduler}'") from None
+    n = os.cpu_count() or 1 if workers is None else workers
+    if not (isinstance(n, int) and n >= 1):
+        raise ValueError(f"workers must be an integer >= 1, got {workers!r}")
+    cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None)
+    return Client(cluster), cluster
+
+
+def _conform_partition(frame, opts, columns):
+    out = estimate_frame(frame, opts)
+    for c in columns:
+        if c not in out.columns:
+            out[c] = float("nan")  # e.g. period0_d in a partition without Cepheids
+    return out[columns]
+
+
+def estimate_dask(ddf, **options):
+    """Distances for every row of a ``dask.dataframe.DataFrame``.
+
+    Parameters
+    ----------
+    ddf : dask.dataframe.DataFrame
+        Same columns as for :func:`specpar.estimate`.
+    **options
+        The keywords of :func:`specpar.estimate` (``law``, ``rv``, ``method``, ``seed`` ...).
+
+    Returns
+    -------
+    dask.dataframe.DataFrame
+        Lazy; each partition is ``estimate`` of the input partition. The
+        metadata (``attrs['specpar']`` of each computed partition) states the
+        assumptions. Partitions keep their rows and order.
+    """
+    _require_dask()
+    opts = make_options(**{k: v for k, v in options.items() if k != "progress"})
+    meta = estimate_frame(ddf._meta.copy(), opts)
+    columns = list(meta.columns)
+    if "period_d" in ddf.columns and "period0_d" not in columns:
+        columns.insert(columns.index("n_obs") + 1, "period0_d")
+        meta["period0_d"] = pd.Series(dtype=float)
+    meta = meta[columns]
+    meta.attrs = {}
+    return ddf.map_partitions(_conform_partition, opts, columns, meta=meta, align_dataframes=False)
+
+
+def _pieces(src, chunk_rows):
+    """(name, file, row groups or None, relative output path) for every piece of work."""
+    import pyarrow.parquet as pq
+    src = Path(src)
+    if is_dataset(src):
+        return [(os.path.relpath(f, src), f, None, Path(os.path.relpath(f, src))) for f in dataset_files(src)]
+    try:
+        md = pq.ParquetFile(str(src)).metadata
+    except Exception as exc:
+        raise ValueError(f"cannot read {src} as parquet: {exc}") from None
+    pieces, group, rows = [], [], 0
+    for i in range(md.num_row_groups):
+        group.append(i)
+        rows += md.row_group(i).num_rows
+        if rows >= chunk_rows:
+            pieces.append(group)
+            group, rows = [], 0
+    if group or not pieces:
+        pieces.append(group)
+    return [(f"{src.name}[row groups {g[0]}-{g[-1]}]" if g else src.name, str(src), g,
+             Path(f"part-{k:06d}.parquet")) for k, g in enumerate(pieces)]
+
+
+def _rows(pieces) -> int:
+    """Rows of all pieces, from the Parquet footers."""
+    import pyarrow.parquet as pq
+    n = 0
+    for _, path, groups, _ in pieces:
+        md = pq.ParquetFile(path).metadata
+        n += md.num_rows if groups is None else sum(md.row_group(i).num_rows for i in groups)
+    return n
+
+
+def _solve_piece(path, row_groups, out_path, opts, chunk_rows):
+    """Worker task: solve one piece and write it to ``out_path``; the row counts."""
+    Path(out_path).parent.mkdir(parents=True, exist_ok=True)
+    return _run_file(path, "parquet", out_path, "parquet", opts, chunk_rows, 1, None, row_groups)
+
+
+def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk_rows=DEFAULT_CHUNK_ROWS,
+                       workers=None, scheduler=None, overwrite=False, progress=False):
+    """:func:`specpar.stream.estimate_file` with ``engine="dask"`` (Parquet input only).
+
+    The pieces are a dataset's files or groups of a file's row groups; each
+    worker writes its piece into a hidden temporary folder beside the output
+    (so the output folder must be visible to every worker: a shared file
+    system on a real cluster). A dataset gives a dataset folder mirroring the
+    input; a single file gives a single file, joined from the pieces in order.
+    """
+    src, dst = Path(src), Path(dst)
+    if not is_dataset(src) and guess_format(src, in_format) != "parquet":
+        raise ValueError(f"the dask engine reads Parquet files and datasets, not {src.name}; "
+                         f"convert it to Parquet or use the default engine (--engine local)")
+    if not is_dataset(src) and not src.is_file():
+        raise ValueError(f"input file {src} does not exist")
+    if not is_dataset(src) and guess_format(dst, out_format) != "parquet":
+        raise ValueError(f"the dask engine writes Parquet; give the output a .parquet name, not {dst.name}")
+    if is_dataset(src) and dst.suffix and guess_format(dst, out_format) != "parquet":
+        raise ValueError(f"a dataset input {src} writes a dataset folder; give a folder name, not {dst.name}")
+    pieces = _pieces(src, chunk_rows)
+    client, cluster = connect(workers, scheduler)
+    try:
+        def build(tmp):
+            from distributed import as_completed
+            futures = {}
+            for name, path, groups, rel in pieces:
+                fut = client.submit(_solve_piece, path, groups, str(tmp / rel), opts, chunk_rows,
+                                    retries=RETRIES, pure=False, key=f"specpar-{abs(hash((str(tmp), name)))}")
+                futures[fut] = name
+            bar = None
+            if progress:
+                from tqdm.auto import tqdm
+                bar = tqdm(total=_rows(pieces), unit="row", unit_scale=True, desc="specpar estimate (dask)")
+            total = {}
+            try:
+                for fut in as_completed(list(futures)):
+                    try:
+                        total = _combine(total, fut.result())
+                    except Exception as exc:
+                        for other in futures:
+                            other.cancel()
+                        msg = exc.args[0] if exc.args else exc
+                        raise ValueError(f"partition {futures[fut]} failed {RETRIES + 1} times; "
+                                         f"no output written: {msg}") from None
+                    if bar is not None:
+                        bar.update(fut.result()["rows"])
+            finally:
+                if bar is not None:
+                    bar.close()
+            return total
+
+        if is_dataset(src):
+            return publish_folder(build, dst, overwrite=overwrite, inputs=[src])
+        result = {}
+
+        def writer(tmp_file):
+            result.update(_ordered_into_file(client, pieces, tmp_file, opts, chunk_rows, progress))
+        atomic_write(dst, writer, inputs=[src], overwrite=overwrite)
+        return result
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+class _TableSink:
+    """Collects a piece's blocks as Arrow tables (sent back to the client)."""
+
+    def __init__(self):
+        self.tables, self.meta = [], None
+
+    def write(self, frame, meta):
+        import pyarrow as pa
+        frame = frame.copy(deep=False)
+        frame.attrs = {}
+        self.tables.append(pa.Table.from_pandas(frame, preserve_index=False))
+        self.meta = meta
+
+    def close(self):
+        pass
+
+
+def _solve_piece_table(path, row_groups, opts, chunk_rows):
+    """Worker task: solve one piece and return (counts, metadata, Arrow table)."""
+    import pyarrow as pa
+    from .stream import _parquet_blocks, _stream
+    total, empty, blocks = _parquet_blocks(path, chunk_rows, row_groups)
+    sink = _TableSink()
+    summary = _stream(blocks, sink, opts, 1, None, empty)
+    table = pa.concat_tables(sink.tables, promote_options="permissive")
+    return summary, sink.meta, table
+
+
+def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress):
+    """Solve the pieces of one file on the cluster and write them into one Parquet
+    file in order, as they come back; at most a few pieces are held at once."""
+    import json
+    import pyarrow as pa
+    n_workers = max(1, len(client.scheduler_info().get("workers", {})))
+    window = 2 * n_workers
+    futures, names = [], []
+    bar = None
+    if progress:
+        from tqdm.auto import tqdm
+        bar = tqdm(total=_rows(pieces), unit="row", unit_scale=True, desc="specpar estimate (dask)")
+
+    def submit(i):
+        name, path, groups, _ = pieces[i]
+        futures.append(client.submit(_solve_piece_table, path, groups, opts, chunk_rows, retries=RETRIES,
+                                     pure=False, key=f"specpar-{abs(hash((str(out_path), name)))}"))
+        names.append(name)
+
+    writer, schema, total = None, None, {}
+    try:
+        for i in range(min(window, len(pieces))):
+            submit(i)
+        for i in range(len(pieces)):
+            try:
+                summary, meta, table = futures[i].result()
+            except Exception as exc:
+                for f in futures[i:]:
+                    f.cancel()
+                msg = exc.args[0] if exc.args else exc
+                raise ValueError(f"partition {names[i]} failed {RETRIES + 1} times; no output written: {msg}") from None
+            futures[i] = None  # release the piece
+            if i + window < len(pieces):
+                submit(i + window)
+            if writer is None:
+                extra = {b"specpar": json.dumps(meta, sort_keys=True).encode()}
+                schema = table.schema.with_metadata({**(table.schema.metadata or {}), **extra})
+                schema = pa.schema([pa.field(f.name, pa.large_string()) if pa.types.is_null(f.type) else f
+                                    for f in schema], metadata=schema.metadata)
+                writer = parquet_writer(out_path, schema)
+            writer.write_table(table.select(schema.names).cast(schema))
+            total = _combine(total, summary)
+            if bar is not None:
+                bar.update(summary["rows"])
+    finally:
+        if writer is not None:
+            writer.close()
+        if bar is not None:
+            bar.close()
+    return total

@@ -1803,7 +1803,8 @@ def simulate_cluster(n_members=400, *, dm=10.0, ebv=0.3, binary_fraction=0.3, fi
                      field="dwarfs", bands=("U", "B", "V", "Ic"), magnitude="V",
                      mag_range=(8.0, 18.0), law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None,
                      error_floor=0.01, error_scale=0.04, width=DEFAULT_WIDTH,
-                     u_reddening="empirical", seed=0):
+                     u_reddening="empirical", seed=0, locus_offset=0.0, n_giants=0, n_turnoff=0,
+                     n_stragglers=0):
     """A synthetic cluster field drawn from the locus, for tests and demonstrations.
 
     Members are uniform in the ordinate's absolute magnitude (apparent range
@@ -1831,7 +1832,7 @@ def simulate_cluster(n_members=400, *, dm=10.0, ebv=0.3, binary_fraction=0.3, fi
     ib = [band_index(b) for b in bands]
     need = np.zeros(len(BAND_NAMES), bool)
     need[ib] = True
-    loc = _build_locus(cal, need)
+    loc = _build_locus(cal, need, float(locus_offset))
     io = band_index(magnitude)
     red = _reddening_vectors(law, rv, u_reddening)
     n_field = int(round(n_members * field_fraction / max(1.0 - field_fraction, 1e-9)))
@@ -1842,7 +1843,16 @@ def simulate_cluster(n_members=400, *, dm=10.0, ebv=0.3, binary_fraction=0.3, fi
     elif n_field:
         parts.append(_broad_field(n_field, parts[0][0], ib, io, mag_range, rng))
     mags, is_bin, q, spt, ei = (np.concatenate([p[i] for p in parts]) for i in range(5))
+    extra = _evolved_stars(n_giants, n_turnoff, n_stragglers, dm, ebv, loc, io, red, rng)
+    if extra is not None:
+        mags = np.concatenate([mags, extra[0]])
+        is_bin, q = np.concatenate([is_bin, np.zeros(len(extra[0]), bool)]), np.concatenate([q, np.zeros(len(extra[0]))])
+        spt, ei = np.concatenate([spt, extra[1]]), np.concatenate([ei, np.full(len(extra[0]), ebv)])
     member = np.arange(len(mags)) < n_members
+    evolved = np.zeros(len(mags), bool)
+    if extra is not None:
+        evolved[-len(extra[0]):] = True
+        member |= evolved
     sig = error_floor + error_scale * 10 ** (0.4 * (mags[:, io] - mag_range[1]))
     t = Table()
     t["id"] = [f"SIM-{i:05d}" for i in range(len(mags))]
@@ -1852,9 +1862,43 @@ def simulate_cluster(n_members=400, *, dm=10.0, ebv=0.3, binary_fraction=0.3, fi
         t[f"e_{b}"] = np.round(s, 4)
     t["sim_member"], t["sim_binary"], t["sim_q"] = member, is_bin, q
     t["sim_sptnum"], t["sim_ebv"] = spt, ei
+    t["sim_evolved"] = evolved
     t.meta["simulation"] = dict(dm=dm, ebv=ebv, binary_fraction=binary_fraction, field=field,
                                 field_fraction=field_fraction, law=law, rv=rv, seed=seed)
     return t
+
+
+def _evolved_stars(n_giants, n_turnoff, n_stragglers, dm, ebv, loc, io, red, rng):
+    """Members off the main sequence: red-clump/RGB giants (class III table, G8-K3),
+    turn-off stars (the locus' blue part moved 0.4-1.5 mag brighter and 0.05-0.3 mag
+    redder in every colour relative to V, as subgiants) and blue stragglers (the locus 0.5-2
+    mag above the brightest drawn member is not used: they are put 1-2.5 mag above the
+    single-star sequence at their colour, as merged binaries)."""
+    lin, quad = red
+    parts, spts = [], []
+    if n_giants:
+        g = default_calibrations().by_class["III"]
+        s = rng.uniform(48.0, 53.0, n_giants)
+        parts.append(np.where(loc.needed, g.evaluate(s).absmag, 0.0))
+        spts.append(s)
+    lo, hi = loc.sptnum[0], loc.sptnum[-1]
+    blue = np.clip(np.array([30.0, 40.0]), lo, hi)
+    for n, up, red_shift in ((n_turnoff, (0.4, 1.5), (0.05, 0.3)), (n_stragglers, (1.0, 2.5), (0.0, 0.0))):
+        if not n:
+            continue
+        s = rng.uniform(*blue, n)
+        m = loc.at(s)
+        m = m - rng.uniform(*up, n)[:, None] * loc.needed
+        # redder: every band but V moves by a fraction of its distance from V in wavelength order
+        dc = rng.uniform(*red_shift, n)[:, None]
+        m = m + dc * (np.array([b in ("U", "B", "BP", "G") for b in BAND_NAMES]) * 1.0
+                      - np.array([b in ("Rc", "Ic", "J", "H", "Ks", "RP") for b in BAND_NAMES]) * 1.0) * loc.needed
+        parts.append(m)
+        spts.append(s)
+    if not parts:
+        return None
+    m = np.concatenate(parts)
+    return m + dm + lin * ebv + quad * ebv ** 2, np.concatenate(spts)
 
 
 def _draw_members(n, dm, ebv, binary_fraction, dm_spread, *, loc, io, red, mag_range, rng):

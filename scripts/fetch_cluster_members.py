@@ -8,7 +8,8 @@ What it does
    its SHA-256 against the value written below.
 2. Reads only the member tables listed below from the archive (nothing else is
    unpacked) and writes one derived table, ``cluster_members.csv``, in the cache:
-   one row per star with the cluster name, the Gaia DR2 source id, Gaia DR2 G, BP,
+   one row per star with the cluster name, the Gaia DR2 source id (rounded in the source
+   table: its last digits are not exact), the record number ``recno``, Gaia DR2 G, BP,
    RP, adopted errors, the Gaia DR2 parallax and its error, the published membership
    class and, where the rotation catalogue gives them, Johnson V and 2MASS Ks.
 3. Checks the layout against documented catalogue values (the median Gaia DR2
@@ -95,6 +96,10 @@ def derive(archive: Path):
     df = pd.DataFrame({
         "cluster": cls,
         "id": np.asarray(t["GaiaDR2"], dtype=np.int64),
+        # record number of the row in the published table: the halves for fitting (even) and
+        # testing (odd). (The source ids in this table went through floating point and lost
+        # their last digits, so their parity is no split.)
+        "recno": np.asarray(t["recno"], dtype=np.int64),
         "G": np.ma.filled(t["Gmag"].astype(float), np.nan),
         "BP": np.ma.filled(t["BPmag"].astype(float), np.nan),
         "RP": np.ma.filled(t["RPmag"].astype(float), np.nan),

@@ -15,14 +15,15 @@ absolute magnitudes (all bands alike, i.e. a change of luminosity at fixed colou
 an offset Delta(BP-RP_0) measured on real stars with their own parallaxes:
 
 * stars: probable members of the Pleiades (Godoy-Rivera et al. 2021, ApJS 257, 46;
-  Gaia DR2 photometry and parallaxes), **even Gaia DR2 source ids only** (the odd
-  ids are the held-out half used by the tests), parallax over error > 20;
+  Gaia DR2 photometry and parallaxes), **even record numbers (recno) of the published table only**
+  (the odd ones are the held-out half used by the tests; the table's Gaia source ids are
+  rounded, so their parity is no split), parallax over error > 20;
 * absolute magnitude from each star's own parallax after removing the Gaia DR2
   parallax zero point of -0.029 mas (Lindegren et al. 2018, A&A 616, A2);
 * dereddened with E(B-V) = 0.045 (Gaia Collaboration, Babusiaux et al. 2018, A&A
   616, A10, Table 2; from memory) and the package's default law (F99, R_V = 3.1);
 * offset = M_G(star) - M_G(dwarf table at the star's BP-RP_0); per 0.2 mag bin of
-  BP-RP_0 with at least 8 stars, the median after iterative clipping to +-0.25 mag
+  BP-RP_0 with at least 5 stars, the median after iterative clipping to +-0.25 mag
   around it (keeps unresolved binaries, up to 0.75 mag brighter, from pulling it);
 * the same bins give the median observed-minus-table (G-RP)_0 at the star's BP-RP_0,
   which corrects the table's G-RP (the Gaia colour-colour relation of real DR2 photometry
@@ -57,7 +58,7 @@ from specpar.extinction import band_coefficients  # noqa: E402
 
 EBV_PLEIADES = 0.045  # Gaia Collaboration 2018 (Babusiaux), Table 2, from memory
 PLX_ZP = -0.029  # Gaia DR2 parallax zero point, Lindegren et al. 2018 (mas)
-BIN, MIN_STARS, CLIP = 0.2, 8, 0.25
+BIN, MIN_STARS, CLIP = 0.2, 5, 0.25
 #: reddest BP-RP_0 used (about K7/M0). Redder, the table's K-M dwarf magnitudes are off by
 #: 0.4-0.5 mag (Pleiades and Praesepe alike), the Pleiades stars beyond BP-RP_0 ~ 2.8 are still
 #: contracting, and the Gaia colour-colour sequence runs parallel to the reddening vector: fits
@@ -69,7 +70,7 @@ MAX_COLOUR = 2.0
 def main():
     cache = Path(os.environ.get("SPECPAR_REALDATA", "~/.cache/specpar-realdata")).expanduser()
     d = pd.read_csv(cache / "cluster_members.csv")
-    s = d[(d.cluster == "Pleiades") & (d.member_class == "probable-member") & (d["id"] % 2 == 0)]
+    s = d[(d.cluster == "Pleiades") & (d.member_class == "probable-member") & (d["recno"] % 2 == 0)]
     s = s[(s.plx / s.e_plx > 20) & np.isfinite(s.G + s.BP + s.RP)]
     lin = np.array(band_coefficients("F99", 3.1))
     iG, iB, iR = band_index("G"), band_index("BP"), band_index("RP")
@@ -132,12 +133,12 @@ def main():
     out["G-RP"] = np.ma.masked_invalid(np.round(grp, 3))
     out["source"] = [f"{src}; G-RP moved by {g:+.3f} mag" if np.isfinite(g) else src
                      for src, g in zip(out["source"], dg)]
-    out["source"] = [f"{src}; M_V moved by {dlt:+.3f} mag (Pleiades even-id parallax sequence, "
+    out["source"] = [f"{src}; M_V moved by {dlt:+.3f} mag (Pleiades even-recno parallax sequence, "
                      "see meta method)" for src, dlt in zip(out["source"], delta)]
     meta = dict(base.table.meta)
     meta["name"] = "young_V"
     meta["title"] = ("Empirical young (~125 Myr, [Fe/H] ~ 0) main sequence: the mean dwarf colours with "
-                     "absolute magnitudes from Pleiades members' Gaia DR2 parallaxes (even source ids)")
+                     "absolute magnitudes from Pleiades members' Gaia DR2 parallaxes (even record numbers)")
     meta["references"] = list(meta.get("references", [])) + [
         "Godoy-Rivera, D., Pinsonneault, M. H. & Rebull, L. M. 2021, ApJS 257, 46 (Pleiades members, "
         "Gaia DR2 photometry and parallaxes)",

@@ -1968,7 +1968,22 @@ def register_cli(sub):
     p.add_argument("--law", default=DEFAULT_LAW, choices=list(LAWS),
                    help=f"extinction law (default {DEFAULT_LAW})")
     p.add_argument("--rv", type=float, default=DEFAULT_RV, help=f"fixed R_V (default {DEFAULT_RV})")
-    p.add_argument("--locus", metavar="FILE", help="locus table in the calibration format (default: class V)")
+    p.add_argument("--locus", metavar="NAME|FILE", default=DEFAULT_LOCUS,
+                   help="'young' (default: empirical young main sequence), 'field' (mean field dwarfs) "
+                        "or a locus table in the calibration format")
+    p.add_argument("--feh", type=float, default=0.0, help="cluster [Fe/H] (default 0)")
+    p.add_argument("--e-feh", type=float, default=0.1, help="uncertainty of [Fe/H] (default 0.1 dex)")
+    p.add_argument("--ebv-prior", metavar="VALUE,ERROR",
+                   help="known E(B-V) and its error, used as a prior (needed with one colour)")
+    p.add_argument("--sigma-rv", type=float, default=DEFAULT_SIGMA_RV,
+                   help=f"uncertainty of R_V in the error budget (default {DEFAULT_SIGMA_RV})")
+    p.add_argument("--keep-evolved", action="store_true",
+                   help="do not set aside stars above the binary sequence (giants, turn-off, stragglers)")
+    p.add_argument("--plx-zero-point", type=float, default=DEFAULT_PLX_ZERO_POINT, metavar="MAS",
+                   help=f"parallax zero point removed from plx (default {DEFAULT_PLX_ZERO_POINT} mas, "
+                        "Gaia DR3; DR2: -0.029)")
+    p.add_argument("--plx-systematic", type=float, default=DEFAULT_PLX_SYSTEMATIC, metavar="MAS",
+                   help=f"systematic floor of the mean parallax (default {DEFAULT_PLX_SYSTEMATIC} mas)")
     p.add_argument("--bands", metavar="B,V,...", help="use only these bands (comma-separated)")
     p.add_argument("--magnitude", metavar="BAND", help="ordinate band (default V, else G, Ic, ...)")
     p.add_argument("--membership", metavar="COLUMN", help="column of prior membership probabilities")
@@ -1978,8 +1993,8 @@ def register_cli(sub):
                    help="ignore stars fainter than this ordinate magnitude")
     p.add_argument("--dm-range", default="-2,25", metavar="LO,HI",
                    help="allowed distance moduli (default -2,25; write --dm-range=-1,20 when LO < 0)")
-    p.add_argument("--ebv-range", default="-0.1,3", metavar="LO,HI",
-                   help="allowed E(B-V) (default -0.1,3; write --ebv-range=-0.05,2 when LO < 0)")
+    p.add_argument("--ebv-range", default="0,3", metavar="LO,HI",
+                   help="allowed E(B-V) (default 0,3; write --ebv-range=-0.05,2 when LO < 0)")
     p.add_argument("--no-binaries", action="store_true", help="fit without the binary sequence")
     p.add_argument("--field-model", choices=("dwarfs+broad", "broad"), default="dwarfs+broad",
                    help="colour density of field stars (default dwarfs+broad)")
@@ -2005,15 +2020,21 @@ def _cmd_cluster(args):
         if f and not str(f).lower().endswith((".png", ".pdf")):
             raise ValueError(f"plot file {f} must end in .png or .pdf")
     table = read_table(args.input, args.in_format)
-    res = fit_cluster(
-        table, law=args.law, rv=args.rv, locus=args.locus, magnitude=args.magnitude,
-        bands=[b.strip() for b in args.bands.split(",")] if args.bands else None,
-        width=args.width, u_reddening=args.u_reddening,
-        membership=args.membership, columns=column_map(args.col), bright_limit=args.bright_limit,
-        faint_limit=args.faint_limit, dm_range=_range_pair(args.dm_range),
-        ebv_range=_range_pair(args.ebv_range), binaries=not args.no_binaries,
-        method="bootstrap" if args.bootstrap else "profile", n_boot=args.bootstrap or 50,
-        seed=args.seed, field_model=args.field_model)
+    import warnings
+    with warnings.catch_warnings():  # the summary prints them as WARNING lines
+        warnings.simplefilter("ignore", ClusterFitWarning)
+        res = fit_cluster(
+            table, law=args.law, rv=args.rv, locus=args.locus, magnitude=args.magnitude,
+            bands=[b.strip() for b in args.bands.split(",")] if args.bands else None,
+            width=args.width, u_reddening=args.u_reddening,
+            membership=args.membership, columns=column_map(args.col), bright_limit=args.bright_limit,
+            faint_limit=args.faint_limit, dm_range=_range_pair(args.dm_range),
+            ebv_range=_range_pair(args.ebv_range), binaries=not args.no_binaries,
+            method="bootstrap" if args.bootstrap else "profile", n_boot=args.bootstrap or 50,
+            seed=args.seed, field_model=args.field_model, feh=args.feh, e_feh=args.e_feh,
+            ebv_prior=_range_pair(args.ebv_prior) if args.ebv_prior else None, sigma_rv=args.sigma_rv,
+            exclude_evolved=not args.keep_evolved, plx_zero_point=args.plx_zero_point,
+            plx_systematic=args.plx_systematic)
     if args.output:
         write_table(res.members, args.output, args.out_format, inputs=[args.input],
                     overwrite=args.overwrite)

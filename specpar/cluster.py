@@ -170,6 +170,7 @@ EVOLVED_MARGIN = 0.15
 GOF_LIMIT = 2.0
 _NSIG = 6.0  # window half-width in the ordinate, in sigma
 _CHUNK = 1500  # stars per vectorised block
+_SUBFIT = 700  # above this many stars, the first (screening) fit uses an even subsample
 #: Ordinate band preference when none is chosen.
 _ORDINATE_ORDER = ("V", "G", "Ic", "Rc", "B", "Ks", "J", "H", "RP", "BP", "U")
 #: Plotting colour preference (blue band, red band).
@@ -1159,11 +1160,22 @@ def _weighted_mean(x, var):
 
 # ============================================================================ error budget
 
+def _subset_model(model, pick):
+    """The model restricted to the used stars ``pick`` (indices into the used stars)."""
+    d = model["data"]
+    dd = _Data(**{**d.__dict__})
+    dd.y, dd.ivar, dd.lognorm, dd.rows = d.y[pick], d.ivar[pick], d.lognorm[pick], d.rows[pick]
+    dd.prior = None if d.prior is None else d.prior[pick]
+    return {**model, "data": dd, "logF": model["logF"][pick]}
+
+
 def _shifted_theta(model, theta, perturbed):
     """First-order change of the free parameters when the model changes to ``perturbed``:
     d theta = -H^-1 (g' - g), g the gradient of -log L at ``theta`` (implicit function theorem)."""
     H, free = model["_hessian"]
-    g0 = _negloglike(theta, model)[1][free]
+    if "_g0" not in model:
+        model["_g0"] = _negloglike(theta, model)[1][free]
+    g0 = model["_g0"]
     g1 = _negloglike(theta, perturbed)[1][free]
     try:
         step = -np.linalg.solve(H, g1 - g0)
@@ -1190,25 +1202,27 @@ def _systematics(model, theta, opts):
         lin, _ = _reddening_vectors(opts["law"], opts["rv"] + opts["sigma_rv"], opts["u_reddening"])
         dt = _shifted_theta(model, theta, {**model, "lin": lin})
         out["R_V"] = (abs(float(dt[0])), abs(float(dt[1])))
+    # first order, (dm, E) are linear in a shift of the observed values: one derivative per
+    # observable, then every band zero point and locus colour is a combination of them
+    h = 0.01
+    jac = np.zeros((len(d.names), 2))  # d(dm, E) / d(observable k)
+    for k in range(len(d.names)):
+        dd = _Data(**{**d.__dict__})
+        step = np.zeros(len(d.names))
+        step[k] = h
+        dd.y = d.y + np.where(d.ivar > 0, step[None, :], 0.0)
+        jac[k] = _shifted_theta(model, theta, {**model, "data": dd}) / h
     for b in BAND_NAMES:
         ib = band_index(b)
         if not (d.L[:, ib] != 0).any():
             continue
-        dz = PHOT_ZP.get(b, 0.01)
-        dd = _Data(**{**d.__dict__})
-        dd.y = d.y + np.where(d.ivar > 0, d.L[:, ib][None, :] * dz, 0.0)
-        dt = _shifted_theta(model, theta, {**model, "data": dd})
+        dt = (d.L[:, ib] @ jac) * PHOT_ZP.get(b, 0.01)
         out[f"zero_point_{b}"] = (abs(float(dt[0])), abs(float(dt[1])))
     # each locus colour, relative to the ordinate band, uncertain by locus_colour_zp
     for k in range(len(d.names)):
-        if k == d.k_ord:
-            continue
-        dd = _Data(**{**d.__dict__})
-        step = np.zeros(len(d.names))
-        step[k] = opts["locus_colour_zp"]
-        dd.y = d.y + np.where(d.ivar > 0, step[None, :], 0.0)
-        dt = _shifted_theta(model, theta, {**model, "data": dd})
-        out[f"locus_colour_{d.names[k]}-{d.names[d.k_ord]}"] = (abs(float(dt[0])), abs(float(dt[1])))
+        if k != d.k_ord:
+            dt = jac[k] * opts["locus_colour_zp"]
+            out[f"locus_colour_{d.names[k]}-{d.names[d.k_ord]}"] = (abs(float(dt[0])), abs(float(dt[1])))
     return out
 
 
@@ -1447,7 +1461,13 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
 
     model["logF"] = field_density(e0)
     ff0 = 0.0 if d.prior is not None else 0.2
-    theta, ll = _maximise(model, [dm0, e0, 0.3 if binary is not None else 0.0, ff0])
+    x0 = [dm0, e0, 0.3 if binary is not None else 0.0, ff0]
+    ll = None
+    if len(d.rows) > _SUBFIT:  # a first fit on an even subsample finds the stars to set aside
+        pick = np.unique(np.linspace(0, len(d.rows) - 1, _SUBFIT).astype(int))
+        theta, _ = _maximise(_subset_model(model, pick), x0)
+    else:
+        theta, ll = _maximise(model, x0)
     for _ in range(3):  # set aside stars off the main sequence or past the locus' end, refit
         ev = _evolved(model, theta) if exclude_evolved else np.zeros(len(d.rows), bool)
         end = _beyond_end(model, theta)
@@ -1455,8 +1475,11 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
             break
         d.flags[d.rows[ev]] |= int(ClusterFlag.EVOLVED)
         d.flags[d.rows[end & ~ev]] |= int(ClusterFlag.BEYOND_LOCUS_END)
+        old_rows, old_logF = d.rows, model["logF"]
         _finalise_data(d, (d.flags & int(set_aside)) == 0)
-        model["logF"] = field_density(theta[1])
+        model["logF"] = old_logF[np.isin(old_rows, d.rows)]  # field density of the full sample
+        theta, ll = _maximise(model, theta)
+    if ll is None:
         theta, ll = _maximise(model, theta)
     cov = _hessian_cov(model, theta, robust=True)
     opts["budget"] = _systematics(model, theta, opts)
@@ -1827,6 +1850,9 @@ def simulate_cluster(n_members=400, *, dm=10.0, ebv=0.3, binary_fraction=0.3, fi
     """
     if field not in ("broad", "dwarfs"):
         raise ValueError(f"field must be 'broad' or 'dwarfs', not {field!r}")
+    if magnitude not in bands:  # else the draw below never fills its quota
+        raise ValueError(f"magnitude {magnitude!r} must be one of the bands simulated "
+                         f"({', '.join(bands)}); pass magnitude=...")
     rng = np.random.default_rng(seed)
     cal = _resolve_locus(locus)
     ib = [band_index(b) for b in bands]

@@ -6,7 +6,8 @@ Model
 Every star is a draw from a mixture of three components, in the space of the
 observables it has (magnitudes and colours, as in :func:`specpar.estimate`):
 
-* **single members** on the locus (by default the class V calibration), at
+* **single members** on the locus (by default the empirical young main sequence
+  ``young_V.ecsv``; ``locus="field"`` for the class V calibration), at
   any position along it, shifted by the distance modulus ``dm`` and reddened
   by ``E(B-V)``; the prior along the locus is uniform in the absolute
   magnitude of the *ordinate* band (V by default) over the locus;
@@ -37,9 +38,11 @@ each observable. Only locus points within 6 sigma in the ordinate of a star
 are summed (exact to a part in 1e7), which keeps a 500-star fit to a second or
 two.
 
-Evolved members (turn-off, giants) do not follow the locus: they are taken up
-by the field component, and ``bright_limit`` removes the upper sequence
-explicitly. Stars whose colours cannot be reached by the locus for any
+Evolved members (turn-off, giants, blue stragglers) do not follow the locus:
+after a first fit, stars brighter than the equal-mass binary sequence at their
+colour (by 0.15 mag and 3 sigma) are set aside (flag ``EVOLVED``), as are stars
+fainter than the locus' red end (``BEYOND_LOCUS_END``), and the fit is repeated;
+``bright_limit`` removes the upper sequence explicitly. Stars whose colours cannot be reached by the locus for any
 allowed E(B-V) are set aside before fitting (flag ``OUTSIDE_LOCUS``).
 
 Reddening: ``A_band = R_band E(B-V)`` from the chosen law at fixed R_V
@@ -47,6 +50,13 @@ Reddening: ``A_band = R_band E(B-V)`` from the chosen law at fixed R_V
 empirical two-colour slope E(U-B)/E(B-V) = 0.72 + 0.05 E(B-V) is used
 (``u_reddening="empirical"``, the default), which carries the curvature that
 the broad U band gives.
+
+Metallicity, bounds, degeneracy
+-------------------------------
+``feh`` moves the locus by ``FEH_SLOPE`` = 1 mag per dex at fixed colour (An et
+al. 2007, from memory). E(B-V) >= 0 by default; at the bound the summary gives an
+upper limit. With a single colour the reddening vector runs along the sequence
+and the fit refuses unless ``ebv_prior=(value, error)`` gives the reddening.
 
 Fit and uncertainty
 -------------------
@@ -60,7 +70,13 @@ form H^-1 J H^-1, J the sum of the per-star score outer products (Huber
 1967), which stays honest when field stars or binaries are only approximately
 described by the mixture;
 ``method="bootstrap"`` refits ``n_boot`` resamples of the stars drawn with a
-seeded generator. Both are reproducible.
+seeded generator. Both are reproducible. The quoted errors are totals: the
+statistical one plus systematic terms (locus zero point, metallicity, R_V, band
+zero points, locus colours), each propagated to first order through the
+likelihood maximum, d theta = -H^-1 d g (implicit function theorem), and listed
+in ``ClusterResult.budget``. A reduced colour chi-square of the likely single
+members measures the goodness of fit. With ``plx``/``e_plx`` columns the cluster's
+mean parallax gives an independent distance, its tension and a combined value.
 
 Two-colour diagram (when U, B and V are available)
 --------------------------------------------------
@@ -83,6 +99,10 @@ table v2022.04.16 (masses along the dwarf sequence).
 Hurley, J. & Tout, C. A. 1998, MNRAS 300, 977 (unresolved binaries in cluster
 colour-magnitude diagrams, up to 0.75 mag above the single-star sequence)
 (from memory).
+Godoy-Rivera, D., Pinsonneault, M. H. & Rebull, L. M. 2021, ApJS 257, 46 (Pleiades
+members behind the young locus).
+Lindegren, L. et al. 2018, A&A 616, A2; 2021, A&A 649, A4 (Gaia parallax zero points).
+An, D. et al. 2007, ApJ 655, 233 (metallicity shift of the main sequence) (from memory).
 Huber, P. J. 1967, Proc. Fifth Berkeley Symp. Math. Stat. Prob. 1, 221
 (sandwich covariance under misspecification) (from memory).
 Byrd, R. H., Lu, P., Nocedal, J. & Zhu, C. 1995, SIAM J. Sci. Comput. 16, 1190
@@ -108,7 +128,7 @@ from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check_
 from .solver import dm_to_pc
 from .estimate import EstimateOptions, attach_results, prepare_observables, to_frame
 
-__all__ = ["fit_cluster", "ClusterResult", "ClusterFlag", "simulate_cluster", "q_index",
+__all__ = ["fit_cluster", "ClusterResult", "ClusterFlag", "ClusterFitWarning", "simulate_cluster", "q_index",
            "intrinsic_bv_from_q", "ub_excess_ratio", "register_cli"]
 
 #: E(U-B)/E(B-V) = UB_SLOPE + UB_CURVATURE * E(B-V): Hiltner & Johnson 1956 (from memory).
@@ -1392,7 +1412,14 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
     Raises
     ------
     ValueError
-        Unusable options or input: too few usable stars, no colour, all stars outside the locus.
+        Unusable options or input: too few usable stars, no colour, all stars outside the
+        locus, or a single colour without ``ebv_prior`` (distance and reddening degenerate).
+
+    Warns
+    -----
+    ClusterFitWarning
+        Poor goodness of fit, near-degenerate (dm, E(B-V)), E(B-V) at its bound, a binary
+        fraction at its bound, or parallax tension above 3 sigma (also in ``warnings``).
 
     References
     ----------

@@ -407,10 +407,10 @@ class ClusterResult:
                              f"{_err(self.e_plx_mean)} mas: too uncertain for a distance")
         if np.isfinite(self.ebv_twocolour):
             lines.append(f"two-colour diagram alone: E(B-V) {self.ebv_twocolour:.3f} +- "
-                         f"{self.e_ebv_twocolour:.3f}")
+                         f"{_err(self.e_ebv_twocolour)} (statistical)")
         if self.n_q:
             lines.append(f"Q method, {self.n_q} early-type members: E(B-V) {self.ebv_q:.3f} +- "
-                         f"{self.e_ebv_q:.3f}")
+                         f"{_err(self.e_ebv_q)}")
         lines.append(f"uncertainties: {self.method}" +
                      (f" ({self.n_boot} resamples, seed {self.seed})" if self.method == "bootstrap" else ""))
         lines += [f"WARNING: {w}" for w in self.warnings]

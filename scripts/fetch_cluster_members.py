@@ -109,10 +109,12 @@ def derive(archive: Path):
     })
     df["e_G"], df["e_BP"], df["e_RP"] = 0.01, 0.02, 0.02
     vk = pd.read_csv(io.BytesIO(raw[PLEIADES_VK]), usecols=["dr2_source_id", "Vmag", "Ksmag"])
-    vk = vk.dropna(subset=["dr2_source_id"]).drop_duplicates("dr2_source_id")
+    vk = vk.dropna(subset=["dr2_source_id"])
+    vk = vk[~vk["dr2_source_id"].duplicated()]  # first row per source
     vk["Vmag"] = vk["Vmag"].where(vk["Vmag"] > 0)  # 0 marks a missing V in this table
     k = pd.read_csv(io.BytesIO(raw[PRAESEPE_K]), usecols=["dr2_source_id", "Ksmag"])
-    k = k.dropna(subset=["dr2_source_id"]).drop_duplicates("dr2_source_id")
+    k = k.dropna(subset=["dr2_source_id"])
+    k = k[~k["dr2_source_id"].duplicated()]
     df["V"], df["Ks"] = np.nan, np.nan
     for name, extra in (("Pleiades", vk), ("Praesepe", k)):
         ids = extra["dr2_source_id"].astype(np.int64)

@@ -6,7 +6,8 @@ Model
 Every star is a draw from a mixture of three components, in the space of the
 observables it has (magnitudes and colours, as in :func:`specpar.estimate`):
 
-* **single members** on the locus (by default the class V calibration), at
+* **single members** on the locus (by default the empirical young main sequence
+  ``young_V.ecsv``; ``locus="field"`` for the class V calibration), at
   any position along it, shifted by the distance modulus ``dm`` and reddened
   by ``E(B-V)``; the prior along the locus is uniform in the absolute
   magnitude of the *ordinate* band (V by default) over the locus;
@@ -37,9 +38,11 @@ each observable. Only locus points within 6 sigma in the ordinate of a star
 are summed (exact to a part in 1e7), which keeps a 500-star fit to a second or
 two.
 
-Evolved members (turn-off, giants) do not follow the locus: they are taken up
-by the field component, and ``bright_limit`` removes the upper sequence
-explicitly. Stars whose colours cannot be reached by the locus for any
+Evolved members (turn-off, giants, blue stragglers) do not follow the locus:
+after a first fit, stars brighter than the equal-mass binary sequence at their
+colour (by 0.15 mag and 3 sigma) are set aside (flag ``EVOLVED``), as are stars
+fainter than the locus' red end (``BEYOND_LOCUS_END``), and the fit is repeated;
+``bright_limit`` removes the upper sequence explicitly. Stars whose colours cannot be reached by the locus for any
 allowed E(B-V) are set aside before fitting (flag ``OUTSIDE_LOCUS``).
 
 Reddening: ``A_band = R_band E(B-V)`` from the chosen law at fixed R_V
@@ -47,6 +50,13 @@ Reddening: ``A_band = R_band E(B-V)`` from the chosen law at fixed R_V
 empirical two-colour slope E(U-B)/E(B-V) = 0.72 + 0.05 E(B-V) is used
 (``u_reddening="empirical"``, the default), which carries the curvature that
 the broad U band gives.
+
+Metallicity, bounds, degeneracy
+-------------------------------
+``feh`` moves the locus by ``FEH_SLOPE`` = 1 mag per dex at fixed colour (An et
+al. 2007, from memory). E(B-V) >= 0 by default; at the bound the summary gives an
+upper limit. With a single colour the reddening vector runs along the sequence
+and the fit refuses unless ``ebv_prior=(value, error)`` gives the reddening.
 
 Fit and uncertainty
 -------------------
@@ -60,7 +70,13 @@ form H^-1 J H^-1, J the sum of the per-star score outer products (Huber
 1967), which stays honest when field stars or binaries are only approximately
 described by the mixture;
 ``method="bootstrap"`` refits ``n_boot`` resamples of the stars drawn with a
-seeded generator. Both are reproducible.
+seeded generator. Both are reproducible. The quoted errors are totals: the
+statistical one plus systematic terms (locus zero point, metallicity, R_V, band
+zero points, locus colours), each propagated to first order through the
+likelihood maximum, d theta = -H^-1 d g (implicit function theorem), and listed
+in ``ClusterResult.budget``. A reduced colour chi-square of the likely single
+members measures the goodness of fit. With ``plx``/``e_plx`` columns the cluster's
+mean parallax gives an independent distance, its tension and a combined value.
 
 Two-colour diagram (when U, B and V are available)
 --------------------------------------------------
@@ -83,6 +99,10 @@ table v2022.04.16 (masses along the dwarf sequence).
 Hurley, J. & Tout, C. A. 1998, MNRAS 300, 977 (unresolved binaries in cluster
 colour-magnitude diagrams, up to 0.75 mag above the single-star sequence)
 (from memory).
+Godoy-Rivera, D., Pinsonneault, M. H. & Rebull, L. M. 2021, ApJS 257, 46 (Pleiades
+members behind the young locus).
+Lindegren, L. et al. 2018, A&A 616, A2; 2021, A&A 649, A4 (Gaia parallax zero points).
+An, D. et al. 2007, ApJ 655, 233 (metallicity shift of the main sequence) (from memory).
 Huber, P. J. 1967, Proc. Fifth Berkeley Symp. Math. Stat. Prob. 1, 221
 (sandwich covariance under misspecification) (from memory).
 Byrd, R. H., Lu, P., Nocedal, J. & Zhu, C. 1995, SIAM J. Sci. Comput. 16, 1190
@@ -92,6 +112,7 @@ Efron, B. 1979, Ann. Statist. 7, 1 (bootstrap).
 from __future__ import annotations
 
 import enum
+import os
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -103,12 +124,12 @@ from scipy.special import logsumexp
 
 from . import __version__
 from .bands import BAND_NAMES, band_index
-from .calibration import Calibration, default_calibrations, load_calibration
+from .calibration import Calibration, calibration_dir, default_calibrations, load_calibration
 from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check_law
 from .solver import dm_to_pc
 from .estimate import EstimateOptions, attach_results, prepare_observables, to_frame
 
-__all__ = ["fit_cluster", "ClusterResult", "ClusterFlag", "simulate_cluster", "q_index",
+__all__ = ["fit_cluster", "ClusterResult", "ClusterFlag", "ClusterFitWarning", "simulate_cluster", "q_index",
            "intrinsic_bv_from_q", "ub_excess_ratio", "register_cli"]
 
 #: E(U-B)/E(B-V) = UB_SLOPE + UB_CURVATURE * E(B-V): Hiltner & Johnson 1956 (from memory).
@@ -129,8 +150,48 @@ LOCUS_STEP = (0.01, 0.05)
 COARSE_STEP = 0.1
 #: Fewest usable stars for a fit.
 MIN_STARS = 10
+#: Named loci. "young": empirical young (~125 Myr, [Fe/H] ~ 0) main sequence derived from
+#: Pleiades members' own Gaia DR2 parallaxes (even source ids; calibrations/young_V.ecsv,
+#: built by calibrations/_build/make_young_locus.py), the default because the unevolved part
+#: of any cluster sequence follows it; "field": the mean field dwarf sequence of Pecaut &
+#: Mamajek 2013 (brighter at a given colour, since it mixes ages).
+LOCI = ("young", "field")
+DEFAULT_LOCUS = "young"
+#: Zero-point uncertainty (mag) of a locus whose file states none (meta zero_point_uncertainty):
+#: the mean field sequence differs from a given cluster's by ~0.1 mag (age, metallicity).
+DEFAULT_LOCUS_ZP = 0.1
+#: Uncertainty of each locus colour (mag) when the locus file states none (common practice:
+#: mean colour sequences are tabulated to 0.01 mag and differ by ~0.02 between compilations).
+DEFAULT_LOCUS_COLOUR_ZP = 0.02
+#: Brightening of the main sequence at fixed colour per dex of [Fe/H], and its uncertainty
+#: (mag/dex). About 1 mag/dex for F-K dwarfs at fixed B-V (e.g. An, D. et al. 2007, ApJ 655,
+#: 233; Pinsonneault, M. H. et al. 2004, ApJ 600, 946; from memory); taken colour-independent
+#: here, with 0.3 mag/dex of slack for that simplification.
+FEH_SLOPE, E_FEH_SLOPE = 1.0, 0.3
+#: Uncertainty of R_V used in the error budget (common practice: the Galactic scatter of R_V
+#: around 3.1 is ~0.2; Fitzpatrick & Massa 2007, ApJ 663, 320, from memory).
+DEFAULT_SIGMA_RV = 0.2
+#: Photometric zero-point uncertainty per band (mag) in the error budget (common practice;
+#: Gaia DR2: Evans, D. W. et al. 2018, A&A 616, A4, a few mmag in G and ~0.01 in BP/RP,
+#: from memory).
+PHOT_ZP = {"U": 0.03, "B": 0.015, "V": 0.015, "Rc": 0.015, "Ic": 0.015, "J": 0.01, "H": 0.01,
+           "Ks": 0.01, "G": 0.005, "BP": 0.01, "RP": 0.01}
+#: Gaia parallax zero point (mas) removed from input parallaxes by default: Gaia EDR3/DR3
+#: quasar median -0.017 mas (Lindegren, L. et al. 2021, A&A 649, A4); DR2: -0.029 mas
+#: (Lindegren et al. 2018, A&A 616, A2).
+DEFAULT_PLX_ZERO_POINT = -0.017
+#: Systematic floor (mas) of a cluster's mean parallax: angular covariance of Gaia
+#: parallaxes on degree scales, ~0.01 mas in EDR3 (Lindegren et al. 2021; Maiz Apellaniz et al.
+#: 2021, A&A 649, A13; from memory), ~0.03-0.04 mas in DR2 (Lindegren et al. 2018).
+DEFAULT_PLX_SYSTEMATIC = 0.010
+#: A star brighter than the single-star sequence at its colour by more than the equal-mass
+#: binary gain (0.75 mag) plus this margin and 3 sigma is not a main-sequence member.
+EVOLVED_MARGIN = 0.15
+#: Reduced colour chi-square of the likely single members above which the sequence does not fit.
+GOF_LIMIT = 2.0
 _NSIG = 6.0  # window half-width in the ordinate, in sigma
 _CHUNK = 1500  # stars per vectorised block
+_SUBFIT = 700  # above this many stars, the first (screening) fit uses an even subsample
 #: Ordinate band preference when none is chosen.
 _ORDINATE_ORDER = ("V", "G", "Ic", "Rc", "B", "Ks", "J", "H", "RP", "BP", "U")
 #: Plotting colour preference (blue band, red band).
@@ -174,6 +235,8 @@ class ClusterFlag(enum.IntFlag):
     LIKELY_FIELD = 1 << 8
     LIKELY_BINARY = 1 << 9
     Q_EARLY_TYPE = 1 << 10
+    EVOLVED = 1 << 11
+    BEYOND_LOCUS_END = 1 << 12
 
 
 _SENTENCES = {
@@ -188,6 +251,10 @@ _SENTENCES = {
     ClusterFlag.LIKELY_FIELD: "more likely a field star than a member (p_member < 0.5)",
     ClusterFlag.LIKELY_BINARY: "member more likely an unresolved binary than single",
     ClusterFlag.Q_EARLY_TYPE: "early-type member: E(B-V) from the Q method given in ebv_q",
+    ClusterFlag.EVOLVED: "brighter than the unresolved-binary sequence at its colour (subgiant, giant, "
+                         "turn-off star or blue straggler): kept out of the distance fit",
+    ClusterFlag.BEYOND_LOCUS_END: "fainter than the faint (red) end of the locus at the fitted distance: "
+                                  "outside the calibrated range, kept out of the distance fit",
 }
 
 #: Per-star output columns: unit and description.
@@ -277,38 +344,114 @@ class ClusterResult:
     locus: str
     members: object = field(repr=False, default=None)
     plot_data: dict = field(repr=False, default_factory=dict)
+    e_dm_stat: float = np.nan
+    e_ebv_stat: float = np.nan
+    budget: dict = field(default_factory=dict)
+    ebv_upper: float = np.nan
+    locus_name: str = ""
+    feh: float = 0.0
+    e_feh: float = 0.0
+    sigma_rv: float = 0.0
+    ebv_prior: tuple = ()
+    gof_chi2_red: float = np.nan
+    n_gof: int = 0
+    n_evolved: int = 0
+    plx_mean: float = np.nan
+    e_plx_mean: float = np.nan
+    n_plx: int = 0
+    plx_zero_point: float = np.nan
+    dm_plx: float = np.nan
+    e_dm_plx: float = np.nan
+    plx_tension: float = np.nan
+    dm_combined: float = np.nan
+    e_dm_combined: float = np.nan
+    warnings: tuple = ()
 
     def summary(self) -> str:
         """A few readable lines."""
+        if np.isfinite(self.ebv_upper):
+            ebv_text = (f"E(B-V) at its lower bound {self.ebv:.3f}: E(B-V) < {self.ebv_upper:.3f} mag "
+                        "(95%, total)")
+        else:
+            ebv_text = (f"E(B-V) {self.ebv:.3f} +- {_err(self.e_ebv)} mag (total; statistical "
+                        f"{_err(self.e_ebv_stat)})")
+        sys_terms = ", ".join(f"{k} {_err(v[0])}" for k, v in self.budget.items() if v[0] >= 5e-4)
         lines = [
             f"stars used {self.n_used} of {self.n_input}; ordinate {self.magnitude}; "
-            f"observables {', '.join(self.observables)}",
-            f"distance modulus {self.dm:.3f} +- {self.e_dm:.3f} mag; "
-            f"E(B-V) {self.ebv:.3f} +- {self.e_ebv:.3f} mag; correlation {self.corr:+.2f}",
+            f"observables {', '.join(self.observables)}"
+            + (f"; {self.n_evolved} evolved stars set aside" if self.n_evolved else ""),
+            f"locus {self.locus_name}, [Fe/H] {self.feh:+.2f} +- {self.e_feh:.2f}"
+            + (f"; E(B-V) prior {self.ebv_prior[0]:.3f} +- {self.ebv_prior[1]:.3f}"
+               if self.ebv_prior else ""),
+            f"distance modulus {self.dm:.3f} +- {_err(self.e_dm)} mag (total; statistical "
+            f"{_err(self.e_dm_stat)}; systematic terms: {sys_terms or 'none'})",
+            f"{ebv_text}; correlation {self.corr:+.2f}",
             f"distance {self.dist_pc:.0f} pc (16-84%: {self.dist_lo_pc:.0f}-{self.dist_hi_pc:.0f} pc); "
-            f"{self.law}, R_V = {self.rv:g}",
-            f"binary fraction {self.binary_fraction:.2f} +- {self.e_binary_fraction:.2f}; "
-            f"field fraction {self.field_fraction:.2f} +- {self.e_field_fraction:.2f}",
+            f"{self.law}, R_V = {self.rv:g} +- {self.sigma_rv:g}",
+            f"binary fraction {_frac(self.binary_fraction, self.e_binary_fraction)}; "
+            f"field fraction {_frac(self.field_fraction, self.e_field_fraction)}",
         ]
+        if np.isfinite(self.gof_chi2_red):
+            lines.append(f"goodness of fit: reduced colour chi-square {self.gof_chi2_red:.2f} over "
+                         f"{self.n_gof} likely single members (expected ~1; above {GOF_LIMIT:g} the "
+                         "sequence does not fit)")
+        if self.n_plx:
+            if np.isfinite(self.dm_plx):
+                lines.append(
+                    f"parallax: {self.n_plx} likely members, mean {self.plx_mean:.4f} +- "
+                    f"{_err(self.e_plx_mean)} mas (zero point {self.plx_zero_point:+.3f} mas removed) "
+                    f"-> distance modulus {self.dm_plx:.3f} +- {_err(self.e_dm_plx)}; tension with the "
+                    f"main-sequence fit {self.plx_tension:+.1f} sigma; combined {self.dm_combined:.3f} "
+                    f"+- {_err(self.e_dm_combined)}")
+            else:
+                lines.append(f"parallax: {self.n_plx} likely members, mean {self.plx_mean:.4f} +- "
+                             f"{_err(self.e_plx_mean)} mas: too uncertain for a distance")
         if np.isfinite(self.ebv_twocolour):
             lines.append(f"two-colour diagram alone: E(B-V) {self.ebv_twocolour:.3f} +- "
-                         f"{self.e_ebv_twocolour:.3f}")
+                         f"{_err(self.e_ebv_twocolour)} (statistical)")
         if self.n_q:
             lines.append(f"Q method, {self.n_q} early-type members: E(B-V) {self.ebv_q:.3f} +- "
-                         f"{self.e_ebv_q:.3f}")
+                         f"{_err(self.e_ebv_q)}")
         lines.append(f"uncertainties: {self.method}" +
                      (f" ({self.n_boot} resamples, seed {self.seed})" if self.method == "bootstrap" else ""))
+        lines += [f"WARNING: {w}" for w in self.warnings]
         return "\n".join(lines)
 
-    def as_dict(self) -> dict:
+    def as_dict(self) -> dict:  # noqa: D102
         """Scalar results as plain Python values (for metadata and JSON)."""
         skip = ("members", "plot_data")
         out = {}
         for k, v in self.__dict__.items():
             if k in skip:
                 continue
+            if isinstance(v, dict):
+                v = {kk: list(vv) if isinstance(vv, tuple) else vv for kk, vv in v.items()}
             out[k] = list(v) if isinstance(v, tuple) else (v.item() if hasattr(v, "item") else v)
         return out
+
+
+def _err(e):
+    """An uncertainty with at least two significant digits (never '0.000' or 'nan')."""
+    if not np.isfinite(e):
+        return "(not determined)"
+    if e >= 0.0095:
+        return f"{e:.3f}"
+    return f"{e:.2g}"
+
+
+def _frac(v, e):
+    """A fraction with its error, or as a limit when it sits on a bound."""
+    if np.isfinite(e):
+        return f"{v:.2f} +- {e:.2f}"
+    if v <= 1e-3:
+        return "0 (at its lower bound; not constrained)"
+    if v >= 0.95:
+        return f"{v:.2f} (at its upper bound; not constrained)"
+    return f"{v:.2f} (fixed)"
+
+
+class ClusterFitWarning(UserWarning):
+    """A cluster fit that ran but whose answer needs care (poor fit, degeneracy, tension)."""
 
 
 # ============================================================================ reddening
@@ -357,13 +500,14 @@ class _Locus:
     absmag: np.ndarray  # (G, n_bands); bands not in use are 0
     mass: np.ndarray
     needed: np.ndarray  # (n_bands,) bands in use
+    offset: float = 0.0  # added to every absolute magnitude (metallicity shift)
 
     def at(self, spt):
         """Absolute magnitudes at numeric types ``spt`` (NaN outside the grid)."""
         spt = np.asarray(spt, dtype=float)
         out = np.full((spt.size, self.absmag.shape[1]), np.nan)
         ok = (spt >= self.sptnum[0]) & (spt <= self.sptnum[-1])
-        out[ok] = np.where(self.needed, self.cal.evaluate(spt[ok]).absmag, 0.0)
+        out[ok] = np.where(self.needed, self.cal.evaluate(spt[ok]).absmag + self.offset, 0.0)
         return out
 
     def spt_of_mass(self, m):
@@ -386,10 +530,10 @@ def _mass_along(cal: Calibration, spt):
     return np.exp(np.interp(spt, x[ok], np.log(y)))
 
 
-def _build_locus(cal: Calibration, bands_needed: np.ndarray) -> _Locus:
+def _build_locus(cal: Calibration, bands_needed: np.ndarray, offset: float = 0.0) -> _Locus:
     lo, hi = cal.sptnum_range
     fine = np.round(np.arange(lo, hi + 1e-9, 0.01), 4)
-    absmag = cal.evaluate(fine).absmag
+    absmag = cal.evaluate(fine).absmag + offset
     ok = np.isfinite(absmag[:, bands_needed]).all(axis=1)
     if ok.sum() < 2:
         missing = [BAND_NAMES[i] for i in np.flatnonzero(bands_needed)
@@ -399,7 +543,7 @@ def _build_locus(cal: Calibration, bands_needed: np.ndarray) -> _Locus:
                          f"(bands=...) or a locus file with those colours")
     spt = fine[ok]
     return _Locus(cal, spt, np.where(bands_needed, absmag[ok], 0.0), _mass_along(cal, spt),
-                  bands_needed)
+                  bands_needed, float(offset))
 
 
 @dataclass
@@ -455,11 +599,31 @@ def _clouds(locus: _Locus, L, k_ord, window, n_q, step):
 
 
 def _resolve_locus(locus):
+    """Calibration of a locus: ``None`` (the default, ``"young"``), ``"young"``, ``"field"``,
+    a :class:`Calibration` or the path of a locus file."""
     if locus is None:
-        return default_calibrations().by_class["V"]
+        locus = DEFAULT_LOCUS
     if isinstance(locus, Calibration):
         return locus
+    if locus == "field":
+        return default_calibrations().by_class["V"]
+    if locus == "young":
+        return load_calibration(calibration_dir() / "young_V.ecsv")
+    if isinstance(locus, str) and not locus.lower().endswith(".ecsv") and "/" not in locus \
+            and "\\" not in locus:
+        raise ValueError(f"locus {locus!r} is neither one of {', '.join(LOCI)} nor an .ecsv file; "
+                         "choose 'young' (default), 'field' or give the path of a locus table")
     return load_calibration(str(locus))
+
+
+def _locus_zero_point(cal: Calibration, key="zero_point_uncertainty", default=DEFAULT_LOCUS_ZP) -> float:
+    """Stated zero-point uncertainty of a locus (mag; magnitudes or, with
+    ``key="colour_zero_point_uncertainty"``, colours), or the default."""
+    try:
+        v = float(cal.table.meta.get(key, default))
+    except (TypeError, ValueError):
+        v = default
+    return v if np.isfinite(v) and v >= 0 else default
 
 
 # ============================================================================ input
@@ -733,6 +897,12 @@ def _mixture(model, theta, comp, per_star=False):
 
 def _negloglike(theta, model):
     ll, g, _ = _mixture(model, theta, _components(model, theta))
+    prior = model.get("ebv_prior")
+    if prior is not None:  # Gaussian prior on E(B-V): a known reddening with its error
+        z = (theta[1] - prior[0]) / prior[1]
+        ll -= 0.5 * z * z
+        g = g.copy()
+        g[1] -= z / prior[1]
     return -ll, -g
 
 
@@ -756,12 +926,16 @@ def _maximise(model, x0):
 
 # ============================================================================ coarse start
 
-def _coarse_start(model, n_max=150, dm_step=0.05):
+def _coarse_start(model, n_max=150, dm_step=0.05, bright_fraction=1.0):
     """Starting (dm, E): grid in E(B-V) (0.05 then 0.01 steps), single-star locus
     sampled every 0.1 mag (widths inflated to match), each star's distance
     modulus likelihood binned and smoothed, field fraction held at 0.3."""
     d, cloud = model["data"], model["coarse"]
-    sub = np.unique(np.linspace(0, len(d.y) - 1, min(n_max, len(d.y))).astype(int))
+    pool = np.arange(len(d.y))
+    if bright_fraction < 1:  # the brightest stars: the part of a sequence a locus surely covers
+        k = max(int(np.ceil(bright_fraction * len(d.y))), min(len(d.y), 30))
+        pool = np.sort(np.argsort(d.y[:, d.k_ord], kind="stable")[:k])
+    sub = pool[np.unique(np.linspace(0, len(pool) - 1, min(n_max, len(pool))).astype(int))]
     y = np.where(d.ivar[sub] > 0, d.y[sub], np.nan)
     var = np.where(d.ivar[sub] > 0, 1.0 / np.maximum(d.ivar[sub], 1e-300), np.nan)
     c, v, others = _colour_space(d, y, var + (COARSE_STEP / 2) ** 2)
@@ -811,8 +985,10 @@ def _hessian_cov(model, theta, robust=False):
     """Covariance of the free parameters from the numerical Hessian of -log L
     (or the sandwich estimator built on it, with ``robust``)."""
     bounds = _bounds(model)
-    free = [i for i, (lo, hi) in enumerate(bounds) if hi > lo
-            and min(theta[i] - lo, hi - theta[i]) > 2e-3]
+    # dm and E(B-V) always (the likelihood is defined a little beyond the E(B-V) bound, so a
+    # value at the bound still gets its curvature); the fractions only off their bounds
+    free = [i for i, (lo, hi) in enumerate(bounds) if i < 2 or (hi > lo
+            and min(theta[i] - lo, hi - theta[i]) > 2e-3)]
     H = np.zeros((len(free), len(free)))
     for a, i in enumerate(free):
         h = 1e-3
@@ -831,9 +1007,13 @@ def _hessian_cov(model, theta, robust=False):
         # Huber (1967) sandwich H^-1 J H^-1 with J = sum of per-star score outer products:
         # stays honest when the mixture model is only approximately right
         g = _mixture(model, theta, _components(model, theta), per_star=True)[1][:, free]
-        inv = inv @ (g.T @ g) @ inv
+        J = g.T @ g
+        if model.get("ebv_prior") is not None:
+            J[1, 1] += 1.0 / model["ebv_prior"][1] ** 2
+        inv = inv @ J @ inv
     if np.all(np.diag(inv) > 0):
         cov[np.ix_(free, free)] = inv
+    model["_hessian"] = (H, free)
     return cov
 
 
@@ -999,13 +1179,159 @@ def _weighted_mean(x, var):
     return mean, float(err), int(x.size)
 
 
+# ============================================================================ error budget
+
+def _subset_model(model, pick):
+    """The model restricted to the used stars ``pick`` (indices into the used stars)."""
+    d = model["data"]
+    dd = _Data(**{**d.__dict__})
+    dd.y, dd.ivar, dd.lognorm, dd.rows = d.y[pick], d.ivar[pick], d.lognorm[pick], d.rows[pick]
+    dd.prior = None if d.prior is None else d.prior[pick]
+    return {**model, "data": dd, "logF": model["logF"][pick]}
+
+
+def _shifted_theta(model, theta, perturbed):
+    """First-order change of the free parameters when the model changes to ``perturbed``:
+    d theta = -H^-1 (g' - g), g the gradient of -log L at ``theta`` (implicit function theorem)."""
+    H, free = model["_hessian"]
+    if "_g0" not in model:
+        model["_g0"] = _negloglike(theta, model)[1][free]
+    g0 = model["_g0"]
+    g1 = _negloglike(theta, perturbed)[1][free]
+    try:
+        step = -np.linalg.solve(H, g1 - g0)
+    except np.linalg.LinAlgError:
+        return np.array([np.nan, np.nan])
+    return step[:2]
+
+
+def _systematics(model, theta, opts):
+    """Systematic terms of the error budget: name -> (d dm, d E(B-V)) at 1 sigma.
+
+    * locus zero point (age, calibration), as stated by the locus file;
+    * metallicity: the [Fe/H] error and the slope of the metallicity shift;
+    * R_V: refit to first order with R_V +- sigma_rv;
+    * photometric zero point of each band used (:data:`PHOT_ZP`), to first order.
+    """
+    d = model["data"]
+    out = {"locus_zero_point": (opts["locus_zp"], 0.0)}
+    feh, e_feh = opts["feh"], opts["e_feh"]
+    out["metallicity"] = (float(np.hypot(FEH_SLOPE * e_feh, E_FEH_SLOPE * feh)), 0.0)
+    if "_hessian" not in model:
+        return out
+    if opts["sigma_rv"] > 0:
+        lin, _ = _reddening_vectors(opts["law"], opts["rv"] + opts["sigma_rv"], opts["u_reddening"])
+        dt = _shifted_theta(model, theta, {**model, "lin": lin})
+        out["R_V"] = (abs(float(dt[0])), abs(float(dt[1])))
+    # first order, (dm, E) are linear in a shift of the observed values: one derivative per
+    # observable, then every band zero point and locus colour is a combination of them
+    h = 0.01
+    jac = np.zeros((len(d.names), 2))  # d(dm, E) / d(observable k)
+    for k in range(len(d.names)):
+        dd = _Data(**{**d.__dict__})
+        step = np.zeros(len(d.names))
+        step[k] = h
+        dd.y = d.y + np.where(d.ivar > 0, step[None, :], 0.0)
+        jac[k] = _shifted_theta(model, theta, {**model, "data": dd}) / h
+    for b in BAND_NAMES:
+        ib = band_index(b)
+        if not (d.L[:, ib] != 0).any():
+            continue
+        dt = (d.L[:, ib] @ jac) * PHOT_ZP.get(b, 0.01)
+        out[f"zero_point_{b}"] = (abs(float(dt[0])), abs(float(dt[1])))
+    # each locus colour, relative to the ordinate band, uncertain by locus_colour_zp
+    for k in range(len(d.names)):
+        if k != d.k_ord:
+            dt = jac[k] * opts["locus_colour_zp"]
+            out[f"locus_colour_{d.names[k]}-{d.names[d.k_ord]}"] = (abs(float(dt[0])), abs(float(dt[1])))
+    return out
+
+
+def _goodness_of_fit(d: _Data, chi2c, p_member, p_binary):
+    """Reduced colour chi-square of the likely single members (expected ~1)."""
+    ncol = (d.ivar > 0).sum(axis=1) - (d.ivar[:, d.k_ord] > 0)
+    single = (p_member >= 0.5) & (p_binary < 0.5 * p_member) & np.isfinite(chi2c) & (ncol > 0)
+    if single.sum() < 3:
+        return np.nan, int(single.sum())
+    return float(chi2c[single].sum() / ncol[single].sum()), int(single.sum())
+
+
+def _evolved(model, theta):
+    """Stars brighter than the unresolved-binary sequence at their colour.
+
+    The single-star locus point closest in colour (at the fitted dm, E(B-V)) gives the
+    ordinate magnitude a main-sequence star of that colour has; a binary is at most
+    0.75 mag brighter (equal masses). Brighter than that by EVOLVED_MARGIN and 3 sigma:
+    off the main sequence (subgiant, giant, turn-off star, blue straggler).
+    """
+    d, single = model["data"], model["single"]
+    y = np.where(d.ivar > 0, d.y, np.nan)
+    var = np.where(d.ivar > 0, 1.0 / np.maximum(d.ivar, 1e-300), np.nan)
+    c, v, others = _colour_space(d, y, var)
+    have = np.isfinite(c)
+    c, iv = np.where(have, c, 0.0), np.where(have, 1.0 / np.where(have, v, 1.0), 0.0)
+    shift, _ = _shift(d, model["lin"], model["quad"], theta[0], theta[1])
+    mc = single.mu0[:, others] - d.a[others] * single.mu0[:, [d.k_ord]]
+    sc = shift[others] - d.a[others] * shift[d.k_ord]
+    n = len(c)
+    ms_ord = np.empty(n)
+    for s in range(0, n, _CHUNK):
+        sl = slice(s, min(n, s + _CHUNK))
+        r = c[sl, None, :] - mc[None] - sc
+        chi = np.einsum("npk,npk,nk->np", r, r, iv[sl])
+        # brightest locus point compatible with the colours (within 3 sigma of the best):
+        # a conservative reference where the locus folds back in colour (upper main sequence)
+        ok = chi <= chi.min(axis=1, keepdims=True) + 9.0
+        ms_ord[sl] = np.where(ok, single.m_ord[None, :], np.inf).min(axis=1)
+    ms_ord = ms_ord + shift[d.k_ord]
+    sig = np.sqrt(1.0 / np.maximum(d.ivar[:, d.k_ord], 1e-300))
+    return d.y[:, d.k_ord] < ms_ord - 2.5 * np.log10(2.0) - EVOLVED_MARGIN - 3 * sig
+
+
+def _beyond_end(model, theta, margin=-0.3):
+    """Stars fainter (ordinate) than the faint end of the single-star locus at the fitted
+    (dm, E(B-V)) by more than ``margin`` and 3 sigma: past the calibrated range."""
+    d, single = model["data"], model["single"]
+    shift, _ = _shift(d, model["lin"], model["quad"], theta[0], theta[1])
+    end = single.m_ord.max() + shift[d.k_ord]
+    sig = np.sqrt(1.0 / np.maximum(d.ivar[:, d.k_ord], 1e-300))
+    return d.y[:, d.k_ord] > end + margin + 3 * sig
+
+
+def _parallax(frame, columns, rows, p_member, zero_point, systematic):
+    """Cluster mean parallax of the likely members: weighted mean of plx - zero_point,
+    error from the weights, inflated by the excess scatter (depth, underestimated errors),
+    plus the systematic floor in quadrature. Returns a dict, or None without plx/e_plx."""
+    cols = dict(columns or {})
+    pc, ec = cols.get("plx", "plx"), cols.get("e_plx", "e_plx")
+    if pc not in frame.columns or ec not in frame.columns:
+        return None
+    plx = pd.to_numeric(frame[pc], errors="coerce").to_numpy(float)[rows]
+    err = pd.to_numeric(frame[ec], errors="coerce").to_numpy(float)[rows]
+    ok = np.isfinite(plx) & np.isfinite(err) & (err > 0) & (p_member >= 0.5)
+    if ok.sum() < 3:
+        return None
+    x, w = plx[ok] - zero_point, 1.0 / err[ok] ** 2
+    mean = float((w * x).sum() / w.sum())
+    chi2 = float((w * (x - mean) ** 2).sum() / (ok.sum() - 1))
+    stat = float(np.sqrt(1.0 / w.sum() * max(chi2, 1.0)))
+    e = float(np.hypot(stat, systematic))
+    if mean <= 0 or mean < 3 * e:
+        return {"plx": mean, "e_plx": e, "n": int(ok.sum()), "dm": np.nan, "e_dm": np.nan}
+    dm = 10.0 - 5.0 * np.log10(mean)
+    e_dm = float(5.0 / np.log(10.0) * e / mean)
+    return {"plx": mean, "e_plx": e, "n": int(ok.sum()), "dm": float(dm), "e_dm": e_dm}
+
+
 # ============================================================================ main entry
 
 def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None, magnitude=None,
                 membership=None, columns=None, bright_limit=-np.inf, faint_limit=np.inf,
-                dm_range=(-2.0, 25.0), ebv_range=(-0.1, 3.0), binaries=True, n_q=10,
+                dm_range=(-2.0, 25.0), ebv_range=(0.0, 3.0), binaries=True, n_q=10,
                 width=DEFAULT_WIDTH, u_reddening="empirical", method="profile", n_boot=50,
-                seed=0, default_error=0.05, two_colour=True, field_model="dwarfs+broad"):
+                seed=0, default_error=0.05, two_colour=True, field_model="dwarfs+broad",
+                feh=0.0, e_feh=0.1, ebv_prior=None, sigma_rv=DEFAULT_SIGMA_RV, exclude_evolved=True,
+                plx_zero_point=DEFAULT_PLX_ZERO_POINT, plx_systematic=DEFAULT_PLX_SYSTEMATIC):
     """Distance modulus and E(B-V) of a cluster by fitting its main-sequence locus.
 
     Parameters
@@ -1018,10 +1344,15 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
         Extinction law (``CCM89``, ``O94``, ``F99``, ``F19``, ``G23``).
     rv : float
         Fixed R_V = A_V / E(B-V).
-    locus : path or Calibration, optional
-        Locus table in the calibration format (e.g. a zero-age main sequence);
-        default the shipped class V calibration. An optional ``mass`` column
-        (Msun) is used for the binary sequence.
+    locus : {"young", "field"}, path or Calibration, optional
+        ``"young"`` (default): the empirical young main sequence shipped as
+        ``young_V.ecsv`` (Pleiades members' Gaia DR2 parallaxes, ~125 Myr,
+        [Fe/H] ~ 0), which the unevolved part of any cluster sequence follows;
+        ``"field"``: the mean field dwarf sequence (class V calibration, Pecaut &
+        Mamajek 2013), brighter at a given colour; or a locus table in the
+        calibration format. An optional ``mass`` column (Msun) is used for the
+        binary sequence; an optional meta ``zero_point_uncertainty`` (mag) enters
+        the error budget (default 0.1 mag).
     bands : sequence of str, optional
         Restrict the fit to these bands (default: all the input has).
     magnitude : str, optional
@@ -1035,7 +1366,8 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
         Use only stars with ordinate magnitude inside these limits (e.g.
         ``bright_limit`` below the turn-off).
     dm_range, ebv_range : (float, float)
-        Allowed ranges of distance modulus and E(B-V).
+        Allowed ranges of distance modulus and E(B-V) (E(B-V) >= 0 by default; a
+        value at the lower bound is reported as an upper limit).
     binaries : bool
         Include the unresolved-binary sequence (``n_q`` mass ratios, flat in q).
     width : float
@@ -1052,16 +1384,43 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
         Also derive E(B-V) from the (U-B, B-V) diagram and the Q method when U, B, V exist.
     field_model : {"dwarfs+broad", "broad"}
         Colour density of the field component (see the module documentation).
+    feh, e_feh : float
+        Cluster metallicity [Fe/H] and its uncertainty (dex): the locus is made
+        brighter by ``FEH_SLOPE * feh`` mag at fixed colour; both the [Fe/H]
+        error and the slope's uncertainty enter the error budget.
+    ebv_prior : (float, float), optional
+        A known E(B-V) and its 1-sigma error, used as a Gaussian prior. Needed
+        with only two bands (one colour), where the reddening vector runs along
+        the sequence and distance and reddening cannot be told apart.
+    sigma_rv : float
+        Uncertainty of R_V propagated into the error budget (0 to leave it out).
+    exclude_evolved : bool
+        Keep stars brighter than the unresolved-binary sequence at their colour
+        (subgiants, giants, turn-off stars, blue stragglers) out of the distance
+        fit (flag ``EVOLVED``), then refit.
+    plx_zero_point, plx_systematic : float
+        With ``plx`` and ``e_plx`` columns (mas): zero point removed from the
+        parallaxes (default Gaia EDR3/DR3, -0.017 mas; use -0.029 for DR2) and
+        the systematic floor of the cluster mean parallax (mas).
 
     Returns
     -------
     ClusterResult
-        Fitted values and a per-star table ``members`` (every input row).
+        Fitted values, their total uncertainties (statistical and systematic terms
+        in ``budget``), goodness of fit, warnings, parallax comparison, and a
+        per-star table ``members`` (every input row).
 
     Raises
     ------
     ValueError
-        Unusable options or input: too few usable stars, no colour, all stars outside the locus.
+        Unusable options or input: too few usable stars, no colour, all stars outside the
+        locus, or a single colour without ``ebv_prior`` (distance and reddening degenerate).
+
+    Warns
+    -----
+    ClusterFitWarning
+        Poor goodness of fit, near-degenerate (dm, E(B-V)), E(B-V) at its bound, a binary
+        fraction at its bound, or parallax tension above 3 sigma (also in ``warnings``).
 
     References
     ----------
@@ -1069,15 +1428,28 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
     """
     opts = _check_options(law, rv, dm_range, ebv_range, n_q, width, method, n_boot, default_error,
                           bright_limit, faint_limit)
+    opts.update(_check_new_options(feh, e_feh, ebv_prior, sigma_rv, plx_zero_point, plx_systematic,
+                                   ebv_range))
+    opts["u_reddening"] = u_reddening
     if field_model not in ("dwarfs+broad", "broad"):
         raise ValueError(f"field_model must be 'dwarfs+broad' or 'broad', not {field_model!r}")
     cal = _resolve_locus(locus)
     d = _cluster_data(table, dict(columns=columns, default_error=default_error, bands=bands,
                              magnitude=magnitude, width=width, bright_limit=bright_limit,
                              faint_limit=faint_limit, membership=membership))
+    if np.linalg.matrix_rank(d.L) < 3 and opts["ebv_prior"] is None:
+        raise ValueError(
+            f"only one colour can be formed from the bands used ({', '.join(d.names)}): along a "
+            "single colour the reddening vector runs nearly parallel to the main sequence, so the "
+            "distance modulus and E(B-V) cannot be separated (any point of a long valley fits). Give "
+            "a known reddening as a prior, ebv_prior=(value, error) (CLI --ebv-prior VALUE,ERROR), or "
+            "add a band (a second colour, e.g. U or Ks with B and V, or BP and RP with G)")
     lin, quad = _reddening_vectors(law, rv, u_reddening)
     bands_needed = (d.L != 0).any(axis=0)
-    loc = _build_locus(cal, bands_needed)
+    opts["locus_zp"] = _locus_zero_point(cal)
+    opts["locus_colour_zp"] = _locus_zero_point(cal, "colour_zero_point_uncertainty",
+                                                DEFAULT_LOCUS_COLOUR_ZP)
+    loc = _build_locus(cal, bands_needed, -FEH_SLOPE * opts["feh"])
     _require(d, (d.flags & int(_BAD_ROWS)) == 0, "with an ordinate magnitude, a colour and inside the limits")
     yo = d.y_all[:, d.k_ord]
     pre = (d.flags & int(_BAD_ROWS)) == 0
@@ -1093,16 +1465,55 @@ def fit_cluster(table, *, law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None, bands=None
     model = {"data": d, "single": single, "binary": binary, "lin": lin, "quad": quad,
              "dm_range": tuple(map(float, dm_range)), "ebv_range": tuple(map(float, ebv_range)),
              "logF": _field_logdensity(d, window), "width": float(width),
-             "coarse": _clouds(loc, d.L, d.k_ord, window, 0, COARSE_STEP)[0]}
-    dm0, e0 = _coarse_start(model)
-    if field_model == "dwarfs+broad":
-        dwarfs = _field_dwarf_logdensity(d, window, model["coarse"], (lin, quad), 2 * max(e0, 0.05))
-        model["logF"] = np.logaddexp(dwarfs, model["logF"]) - np.log(2.0)
+             "coarse": _clouds(loc, d.L, d.k_ord, window, 0, COARSE_STEP)[0],
+             "ebv_prior": opts["ebv_prior"]}
+    set_aside = _BAD_ROWS | ClusterFlag.EVOLVED | ClusterFlag.BEYOND_LOCUS_END
+    for it in range(4):  # coarse start; stars past the locus' faint end at it are set aside
+        dm0, e0 = _coarse_start(model, bright_fraction=0.4 if it == 0 else 1.0)
+        if opts["ebv_prior"] is not None:
+            e0 = float(np.clip(opts["ebv_prior"][0], *ebv_range))
+        end = _beyond_end(model, np.array([dm0, e0]), margin=-0.3)
+        if not end.any() or (~end).sum() < MIN_STARS:
+            break
+        d.flags[d.rows[end]] |= int(ClusterFlag.BEYOND_LOCUS_END)
+        _finalise_data(d, (d.flags & int(set_aside)) == 0)
+        model["logF"] = _field_logdensity(d, window)
+
+    def field_density(e_start):
+        logF = _field_logdensity(d, window)
+        if field_model == "dwarfs+broad":
+            dwarfs = _field_dwarf_logdensity(d, window, model["coarse"], (lin, quad),
+                                             2 * max(e_start, 0.05))
+            logF = np.logaddexp(dwarfs, logF) - np.log(2.0)
+        return logF
+
+    model["logF"] = field_density(e0)
     ff0 = 0.0 if d.prior is not None else 0.2
-    theta, ll = _maximise(model, [dm0, e0, 0.3 if binary is not None else 0.0, ff0])
+    x0 = [dm0, e0, 0.3 if binary is not None else 0.0, ff0]
+    ll = None
+    if len(d.rows) > _SUBFIT:  # a first fit on an even subsample finds the stars to set aside
+        pick = np.unique(np.linspace(0, len(d.rows) - 1, _SUBFIT).astype(int))
+        theta, _ = _maximise(_subset_model(model, pick), x0)
+    else:
+        theta, ll = _maximise(model, x0)
+    for _ in range(3):  # set aside stars off the main sequence or past the locus' end, refit
+        ev = _evolved(model, theta) if exclude_evolved else np.zeros(len(d.rows), bool)
+        end = _beyond_end(model, theta)
+        if not (ev.any() or end.any()) or (~(ev | end)).sum() < MIN_STARS:
+            break
+        d.flags[d.rows[ev]] |= int(ClusterFlag.EVOLVED)
+        d.flags[d.rows[end & ~ev]] |= int(ClusterFlag.BEYOND_LOCUS_END)
+        old_rows, old_logF = d.rows, model["logF"]
+        _finalise_data(d, (d.flags & int(set_aside)) == 0)
+        model["logF"] = old_logF[np.isin(old_rows, d.rows)]  # field density of the full sample
+        theta, ll = _maximise(model, theta)
+    if ll is None:
+        theta, ll = _maximise(model, theta)
     cov = _hessian_cov(model, theta, robust=True)
+    opts["budget"] = _systematics(model, theta, opts)
     boot = _bootstrap(model, theta, n_boot, seed) if method == "bootstrap" else None
     opts["seed"] = int(seed)
+    opts["columns"] = columns
     return _assemble_result(table, d, model, theta, ll, cov, boot, opts, loc, two_colour)
 
 
@@ -1128,6 +1539,34 @@ def _check_options(law, rv, dm_range, ebv_range, n_q, width, method, n_boot, def
         raise ValueError(f"bright_limit ({bright_limit}) must be brighter (smaller) than "
                          f"faint_limit ({faint_limit})")
     return dict(law=law, rv=float(rv), method=method, n_boot=int(n_boot))
+
+
+def _check_new_options(feh, e_feh, ebv_prior, sigma_rv, plx_zero_point, plx_systematic, ebv_range):
+    for name, v, lo, hi in (("feh", feh, -2.5, 1.0), ("e_feh", e_feh, 0.0, 1.0),
+                            ("sigma_rv", sigma_rv, 0.0, 2.0),
+                            ("plx_zero_point", plx_zero_point, -0.2, 0.2),
+                            ("plx_systematic", plx_systematic, 0.0, 0.5)):
+        try:
+            v = float(v)
+        except (TypeError, ValueError):
+            raise ValueError(f"{name} must be a number, got {v!r}") from None
+        if not (np.isfinite(v) and lo <= v <= hi):
+            raise ValueError(f"{name} = {v} is outside the accepted range [{lo:g}, {hi:g}]; "
+                             f"give a value inside it")
+    prior = None
+    if ebv_prior is not None:
+        try:
+            mu, sig = (float(x) for x in ebv_prior)
+        except (TypeError, ValueError):
+            raise ValueError(f"ebv_prior must be (value, error) in mag, e.g. (0.04, 0.01); got "
+                             f"{ebv_prior!r}") from None
+        if not (np.isfinite(mu) and np.isfinite(sig) and sig > 0 and ebv_range[0] <= mu <= ebv_range[1]):
+            raise ValueError(f"ebv_prior {ebv_prior!r}: the value must lie in ebv_range "
+                             f"[{ebv_range[0]:g}, {ebv_range[1]:g}] and the error be > 0 (use a small "
+                             f"error, e.g. 0.005, for a reddening known well)")
+        prior = (mu, max(sig, 1e-4))
+    return dict(feh=float(feh), e_feh=float(e_feh), ebv_prior=prior, sigma_rv=float(sigma_rv),
+                plx_zero_point=float(plx_zero_point), plx_systematic=float(plx_systematic))
 
 
 def _require(d: _Data, usable, what):
@@ -1290,9 +1729,53 @@ def _assemble_result(table, d: _Data, model, theta, ll, cov, boot, opts, loc, tw
     ff = float(theta[3]) if d.prior is None else float(np.mean(1 - d.prior))
     if d.prior is not None:
         e_ff = np.nan
+    budget = {k: (float(v[0]), float(v[1])) for k, v in opts["budget"].items()}
+    sys_dm = float(np.sqrt(sum(v[0] ** 2 for v in budget.values() if np.isfinite(v[0]))))
+    sys_ebv = float(np.sqrt(sum(v[1] ** 2 for v in budget.values() if np.isfinite(v[1]))))
+    e_dm_tot, e_ebv_tot = float(np.hypot(e_dm, sys_dm)), float(np.hypot(e_ebv, sys_ebv))
+    if np.isfinite(e_dm_tot):
+        d16, d84 = (float(x) for x in dm_to_pc(theta[0] + np.array([-e_dm_tot, e_dm_tot])))
+    lo_e = model["ebv_range"][0]
+    ebv_upper = lo_e + 1.645 * e_ebv_tot if theta[1] - lo_e < 1e-3 else np.nan
+    pm_used = cols["p_member"][r]
+    gof, n_gof = _goodness_of_fit(d, chi2c, pm_used, cols["p_binary"][r])
+    plx = _parallax(d.frame, opts.get("columns"), r, pm_used, opts["plx_zero_point"],
+                    opts["plx_systematic"])
+    warn = []
+    if np.isfinite(gof) and gof > GOF_LIMIT:
+        warn.append(f"the sequence does not fit the members: reduced colour chi-square {gof:.2f} "
+                    f"> {GOF_LIMIT:g}; check the photometric system, the locus (locus='young' or "
+                    "'field', [Fe/H]) and the membership")
+    if np.isfinite(corr) and abs(corr) > 0.95 and opts["ebv_prior"] is None:
+        warn.append(f"distance modulus and E(B-V) are almost degenerate (correlation {corr:+.2f}): "
+                    "the colours barely separate reddening from distance; give ebv_prior or add bands")
+    if np.isfinite(ebv_upper):
+        warn.append(f"E(B-V) sits at its lower bound {lo_e:g}: only an upper limit, "
+                    f"E(B-V) < {ebv_upper:.3f} (95%)")
+    n_ev = int(((flags & int(ClusterFlag.EVOLVED)) != 0).sum())
+    res_plx = {}
+    if plx is not None:
+        res_plx = dict(plx_mean=plx["plx"], e_plx_mean=plx["e_plx"], n_plx=plx["n"],
+                       plx_zero_point=opts["plx_zero_point"], dm_plx=plx["dm"], e_dm_plx=plx["e_dm"])
+        if np.isfinite(plx["dm"]):
+            z = (theta[0] - plx["dm"]) / np.hypot(e_dm_tot, plx["e_dm"])
+            w1, w2 = 1 / e_dm_tot ** 2, 1 / plx["e_dm"] ** 2
+            res_plx.update(plx_tension=float(z), dm_combined=float((w1 * theta[0] + w2 * plx["dm"]) / (w1 + w2)),
+                           e_dm_combined=float(np.sqrt(1 / (w1 + w2))))
+            if abs(z) > 3:
+                warn.append(f"the main-sequence distance modulus {theta[0]:.3f} and the parallax one "
+                            f"{plx['dm']:.3f} disagree by {z:+.1f} sigma: the combined value is not "
+                            "meaningful; check the locus, [Fe/H], reddening and parallax zero point")
+    if model["binary"] is not None and not np.isfinite(e_fb) and theta[2] >= 0.95:
+        warn.append("binary fraction at its upper bound: many members lie above the single-star "
+                    "locus (a locus too faint for this cluster, e.g. a young or metal-rich one, or "
+                    "unresolved evolved stars)")
+    import warnings as _warnings
+    for w in warn:
+        _warnings.warn(w, ClusterFitWarning, stacklevel=3)
     res = ClusterResult(
-        dm=float(theta[0]), e_dm=float(e_dm), ebv=float(theta[1]), e_ebv=float(e_ebv), corr=corr,
-        dist_pc=d50, dist_lo_pc=d16, dist_hi_pc=d84,
+        dm=float(theta[0]), e_dm=float(e_dm_tot), ebv=float(theta[1]), e_ebv=float(e_ebv_tot),
+        corr=corr, dist_pc=d50, dist_lo_pc=d16, dist_hi_pc=d84,
         binary_fraction=float(theta[2]) if model["binary"] is not None else 0.0,
         e_binary_fraction=float(e_fb), field_fraction=ff, e_field_fraction=float(e_ff),
         n_input=N, n_used=len(r), law=opts["law"], rv=opts["rv"], magnitude=d.names[d.k_ord],
@@ -1300,7 +1783,12 @@ def _assemble_result(table, d: _Data, model, theta, ll, cov, boot, opts, loc, tw
         n_boot=opts["n_boot"] if boot is not None else 0, seed=opts["seed"],
         ebv_twocolour=tc["ebv_tc"] if tc else np.nan, e_ebv_twocolour=tc["e_ebv_tc"] if tc else np.nan,
         ebv_q=tc["ebv_q"] if tc else np.nan, e_ebv_q=tc["e_ebv_q"] if tc else np.nan,
-        n_q=tc["n_q"] if tc else 0, log_likelihood=ll, locus=loc.cal.describe())
+        n_q=tc["n_q"] if tc else 0, log_likelihood=ll, locus=loc.cal.describe(),
+        e_dm_stat=float(e_dm), e_ebv_stat=float(e_ebv), budget=budget, ebv_upper=float(ebv_upper),
+        locus_name=loc.cal.name, feh=opts["feh"], e_feh=opts["e_feh"], sigma_rv=opts["sigma_rv"],
+        ebv_prior=tuple(opts["ebv_prior"] or ()), gof_chi2_red=gof, n_gof=n_gof, n_evolved=n_ev,
+        warnings=tuple(warn), **res_plx)
+    res.e_dm, res.e_ebv = e_dm_tot, e_ebv_tot
     res.members = _member_table(table, d, cols, used, flags, res)
     res.plot_data = _plot_data(d, model, theta, loc, cols, used, tc)
     return res
@@ -1346,7 +1834,10 @@ def _member_table(table, d: _Data, cols, used, flags, res):
                 "Members lie on the locus (single stars) or on the unresolved-binary sequence "
                 "(flat mass-ratio distribution); the prior along the locus is uniform in the "
                 "ordinate's absolute magnitude; field stars follow a broad density; one extinction "
-                "law at fixed R_V for the whole cluster; evolved members count as outliers.")}
+                "law at fixed R_V for the whole cluster; stars brighter than the binary sequence at "
+                "their colour (flag EVOLVED) are left out of the fit; uncertainties are totals: "
+                "statistical plus the systematic terms listed in cluster_fit.budget (locus zero "
+                "point, metallicity, R_V, photometric zero points).")}
     return attach_results(table, d.frame, results, meta, MEMBER_COLUMNS)
 
 
@@ -1363,7 +1854,8 @@ def simulate_cluster(n_members=400, *, dm=10.0, ebv=0.3, binary_fraction=0.3, fi
                      field="dwarfs", bands=("U", "B", "V", "Ic"), magnitude="V",
                      mag_range=(8.0, 18.0), law=DEFAULT_LAW, rv=DEFAULT_RV, locus=None,
                      error_floor=0.01, error_scale=0.04, width=DEFAULT_WIDTH,
-                     u_reddening="empirical", seed=0):
+                     u_reddening="empirical", seed=0, locus_offset=0.0, n_giants=0, n_turnoff=0,
+                     n_stragglers=0):
     """A synthetic cluster field drawn from the locus, for tests and demonstrations.
 
     Members are uniform in the ordinate's absolute magnitude (apparent range
@@ -1386,12 +1878,15 @@ def simulate_cluster(n_members=400, *, dm=10.0, ebv=0.3, binary_fraction=0.3, fi
     """
     if field not in ("broad", "dwarfs"):
         raise ValueError(f"field must be 'broad' or 'dwarfs', not {field!r}")
+    if magnitude not in bands:  # else the draw below never fills its quota
+        raise ValueError(f"magnitude {magnitude!r} must be one of the bands simulated "
+                         f"({', '.join(bands)}); pass magnitude=...")
     rng = np.random.default_rng(seed)
     cal = _resolve_locus(locus)
     ib = [band_index(b) for b in bands]
     need = np.zeros(len(BAND_NAMES), bool)
     need[ib] = True
-    loc = _build_locus(cal, need)
+    loc = _build_locus(cal, need, float(locus_offset))
     io = band_index(magnitude)
     red = _reddening_vectors(law, rv, u_reddening)
     n_field = int(round(n_members * field_fraction / max(1.0 - field_fraction, 1e-9)))
@@ -1402,7 +1897,16 @@ def simulate_cluster(n_members=400, *, dm=10.0, ebv=0.3, binary_fraction=0.3, fi
     elif n_field:
         parts.append(_broad_field(n_field, parts[0][0], ib, io, mag_range, rng))
     mags, is_bin, q, spt, ei = (np.concatenate([p[i] for p in parts]) for i in range(5))
+    extra = _evolved_stars(n_giants, n_turnoff, n_stragglers, dm, ebv, loc, io, red, rng)
+    if extra is not None:
+        mags = np.concatenate([mags, extra[0]])
+        is_bin, q = np.concatenate([is_bin, np.zeros(len(extra[0]), bool)]), np.concatenate([q, np.zeros(len(extra[0]))])
+        spt, ei = np.concatenate([spt, extra[1]]), np.concatenate([ei, np.full(len(extra[0]), ebv)])
     member = np.arange(len(mags)) < n_members
+    evolved = np.zeros(len(mags), bool)
+    if extra is not None:
+        evolved[-len(extra[0]):] = True
+        member |= evolved
     sig = error_floor + error_scale * 10 ** (0.4 * (mags[:, io] - mag_range[1]))
     t = Table()
     t["id"] = [f"SIM-{i:05d}" for i in range(len(mags))]
@@ -1412,9 +1916,43 @@ def simulate_cluster(n_members=400, *, dm=10.0, ebv=0.3, binary_fraction=0.3, fi
         t[f"e_{b}"] = np.round(s, 4)
     t["sim_member"], t["sim_binary"], t["sim_q"] = member, is_bin, q
     t["sim_sptnum"], t["sim_ebv"] = spt, ei
+    t["sim_evolved"] = evolved
     t.meta["simulation"] = dict(dm=dm, ebv=ebv, binary_fraction=binary_fraction, field=field,
                                 field_fraction=field_fraction, law=law, rv=rv, seed=seed)
     return t
+
+
+def _evolved_stars(n_giants, n_turnoff, n_stragglers, dm, ebv, loc, io, red, rng):
+    """Members off the main sequence: red-clump/RGB giants (class III table, G8-K3),
+    turn-off stars (the locus' blue part moved 0.4-1.5 mag brighter and 0.05-0.3 mag
+    redder in every colour relative to V, as subgiants) and blue stragglers (the locus 0.5-2
+    mag above the brightest drawn member is not used: they are put 1-2.5 mag above the
+    single-star sequence at their colour, as merged binaries)."""
+    lin, quad = red
+    parts, spts = [], []
+    if n_giants:
+        g = default_calibrations().by_class["III"]
+        s = rng.uniform(48.0, 53.0, n_giants)
+        parts.append(np.where(loc.needed, g.evaluate(s).absmag, 0.0))
+        spts.append(s)
+    lo, hi = loc.sptnum[0], loc.sptnum[-1]
+    blue = np.clip(np.array([30.0, 40.0]), lo, hi)
+    for n, up, red_shift in ((n_turnoff, (0.4, 1.5), (0.05, 0.3)), (n_stragglers, (1.0, 2.5), (0.0, 0.0))):
+        if not n:
+            continue
+        s = rng.uniform(*blue, n)
+        m = loc.at(s)
+        m = m - rng.uniform(*up, n)[:, None] * loc.needed
+        # redder: every band but V moves by a fraction of its distance from V in wavelength order
+        dc = rng.uniform(*red_shift, n)[:, None]
+        m = m + dc * (np.array([b in ("U", "B", "BP", "G") for b in BAND_NAMES]) * 1.0
+                      - np.array([b in ("Rc", "Ic", "J", "H", "Ks", "RP") for b in BAND_NAMES]) * 1.0) * loc.needed
+        parts.append(m)
+        spts.append(s)
+    if not parts:
+        return None
+    m = np.concatenate(parts)
+    return m + dm + lin * ebv + quad * ebv ** 2, np.concatenate(spts)
 
 
 def _draw_members(n, dm, ebv, binary_fraction, dm_spread, *, loc, io, red, mag_range, rng):
@@ -1484,7 +2022,22 @@ def register_cli(sub):
     p.add_argument("--law", default=DEFAULT_LAW, choices=list(LAWS),
                    help=f"extinction law (default {DEFAULT_LAW})")
     p.add_argument("--rv", type=float, default=DEFAULT_RV, help=f"fixed R_V (default {DEFAULT_RV})")
-    p.add_argument("--locus", metavar="FILE", help="locus table in the calibration format (default: class V)")
+    p.add_argument("--locus", metavar="NAME|FILE", default=DEFAULT_LOCUS,
+                   help="'young' (default: empirical young main sequence), 'field' (mean field dwarfs) "
+                        "or a locus table in the calibration format")
+    p.add_argument("--feh", type=float, default=0.0, help="cluster [Fe/H] (default 0)")
+    p.add_argument("--e-feh", type=float, default=0.1, help="uncertainty of [Fe/H] (default 0.1 dex)")
+    p.add_argument("--ebv-prior", metavar="VALUE,ERROR",
+                   help="known E(B-V) and its error, used as a prior (needed with one colour)")
+    p.add_argument("--sigma-rv", type=float, default=DEFAULT_SIGMA_RV,
+                   help=f"uncertainty of R_V in the error budget (default {DEFAULT_SIGMA_RV})")
+    p.add_argument("--keep-evolved", action="store_true",
+                   help="do not set aside stars above the binary sequence (giants, turn-off, stragglers)")
+    p.add_argument("--plx-zero-point", type=float, default=DEFAULT_PLX_ZERO_POINT, metavar="MAS",
+                   help=f"parallax zero point removed from plx (default {DEFAULT_PLX_ZERO_POINT} mas, "
+                        "Gaia DR3; DR2: -0.029)")
+    p.add_argument("--plx-systematic", type=float, default=DEFAULT_PLX_SYSTEMATIC, metavar="MAS",
+                   help=f"systematic floor of the mean parallax (default {DEFAULT_PLX_SYSTEMATIC} mas)")
     p.add_argument("--bands", metavar="B,V,...", help="use only these bands (comma-separated)")
     p.add_argument("--magnitude", metavar="BAND", help="ordinate band (default V, else G, Ic, ...)")
     p.add_argument("--membership", metavar="COLUMN", help="column of prior membership probabilities")
@@ -1494,8 +2047,8 @@ def register_cli(sub):
                    help="ignore stars fainter than this ordinate magnitude")
     p.add_argument("--dm-range", default="-2,25", metavar="LO,HI",
                    help="allowed distance moduli (default -2,25; write --dm-range=-1,20 when LO < 0)")
-    p.add_argument("--ebv-range", default="-0.1,3", metavar="LO,HI",
-                   help="allowed E(B-V) (default -0.1,3; write --ebv-range=-0.05,2 when LO < 0)")
+    p.add_argument("--ebv-range", default="0,3", metavar="LO,HI",
+                   help="allowed E(B-V) (default 0,3; write --ebv-range=-0.05,2 when LO < 0)")
     p.add_argument("--no-binaries", action="store_true", help="fit without the binary sequence")
     p.add_argument("--field-model", choices=("dwarfs+broad", "broad"), default="dwarfs+broad",
                    help="colour density of field stars (default dwarfs+broad)")
@@ -1521,21 +2074,28 @@ def _cmd_cluster(args):
     for f in (args.plot, args.twocolour):
         if f and not str(f).lower().endswith((".png", ".pdf")):
             raise ValueError(f"plot file {f} must end in .png or .pdf")
+    locus_file = [args.locus] if args.locus and os.path.isfile(str(args.locus)) else []
     if args.output:  # checked before any computing (never over the table or the locus file)
         from .tableio import check_output
-        check_output(args.output, args.out_format, inputs=[args.input, args.locus], overwrite=args.overwrite)
+        check_output(args.output, args.out_format, inputs=[args.input, *locus_file], overwrite=args.overwrite)
     table = read_table(args.input, args.in_format, hdu=args.hdu)
-    res = fit_cluster(
-        table, law=args.law, rv=args.rv, locus=args.locus, magnitude=args.magnitude,
-        bands=[b.strip() for b in args.bands.split(",")] if args.bands else None,
-        width=args.width, u_reddening=args.u_reddening,
-        membership=args.membership, columns=column_map(args.col), bright_limit=args.bright_limit,
-        faint_limit=args.faint_limit, dm_range=_range_pair(args.dm_range),
-        ebv_range=_range_pair(args.ebv_range), binaries=not args.no_binaries,
-        method="bootstrap" if args.bootstrap else "profile", n_boot=args.bootstrap or 50,
-        seed=args.seed, field_model=args.field_model)
+    import warnings
+    with warnings.catch_warnings():  # the summary prints them as WARNING lines
+        warnings.simplefilter("ignore", ClusterFitWarning)
+        res = fit_cluster(
+            table, law=args.law, rv=args.rv, locus=args.locus, magnitude=args.magnitude,
+            bands=[b.strip() for b in args.bands.split(",")] if args.bands else None,
+            width=args.width, u_reddening=args.u_reddening,
+            membership=args.membership, columns=column_map(args.col), bright_limit=args.bright_limit,
+            faint_limit=args.faint_limit, dm_range=_range_pair(args.dm_range),
+            ebv_range=_range_pair(args.ebv_range), binaries=not args.no_binaries,
+            method="bootstrap" if args.bootstrap else "profile", n_boot=args.bootstrap or 50,
+            seed=args.seed, field_model=args.field_model, feh=args.feh, e_feh=args.e_feh,
+            ebv_prior=_range_pair(args.ebv_prior) if args.ebv_prior else None, sigma_rv=args.sigma_rv,
+            exclude_evolved=not args.keep_evolved, plx_zero_point=args.plx_zero_point,
+            plx_systematic=args.plx_systematic)
     if args.output:
-        write_table(res.members, args.output, args.out_format, inputs=[args.input, args.locus],
+        write_table(res.members, args.output, args.out_format, inputs=[args.input, *locus_file],
                     overwrite=args.overwrite)
     from .clusterplots import plot_cmd, plot_two_colour
     if args.plot:

@@ -123,7 +123,8 @@ def plot_two_colour(result, path, *, inputs=(), overwrite=False):
     title = "Two-colour diagram"
     if np.isfinite(result.ebv_twocolour):
         title += (f": E(B-V) from this diagram alone {result.ebv_twocolour:.3f}"
-                  f" +- {result.e_ebv_twocolour:.3f}")
+                  + (f" +- {result.e_ebv_twocolour:.3f}" if np.isfinite(result.e_ebv_twocolour)
+                     else " (error not determined)"))
     ax.set_title(title, fontsize=9)
     ax.legend(loc="lower left", fontsize=7, framealpha=0.8)
     _save(fig, path, inputs, overwrite)

@@ -37,7 +37,6 @@ from __future__ import annotations
 
 import gzip
 import hashlib
-import io
 import os
 import subprocess
 import sys
@@ -81,7 +80,8 @@ def derived_path() -> Path:
     return cache_dir() / DERIVED_NAME
 
 
-def _sha256(path: Path) -> str:
+def sha256(path: Path) -> str:
+    """SHA-256 hex digest of a file (read in 1 MiB blocks)."""
     h = hashlib.sha256()
     with open(path, "rb") as f:
         for block in iter(lambda: f.read(1 << 20), b""):
@@ -100,7 +100,7 @@ def _download(pkg, version, kind, fname, sha, dl: Path) -> Path:
         res = subprocess.run(cmd, capture_output=True, text=True)
         if res.returncode != 0 or not target.exists():
             raise RuntimeError(f"pip download of {pkg}=={version} failed:\n{res.stderr[-2000:]}")
-    got = _sha256(target)
+    got = sha256(target)
     if got != sha:
         raise RuntimeError(f"{target.name}: SHA-256 {got} differs from the pinned {sha}; "
                            f"delete the file and fetch again, or check the registry")

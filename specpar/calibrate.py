@@ -103,7 +103,6 @@ def validate(stars, calibrations=(), *, v_limit=6.5, min_stars=25, faint_quantil
     eplx = np.asarray(stars["e_plx"], dtype=float)
     d = phot["dist_pc"].to_numpy(float)
     lo, hi = phot["dist_lo_pc"].to_numpy(float), phot["dist_hi_pc"].to_numpy(float)
-    av = np.nan_to_num(phot["av"].to_numpy(float))
     vlim = np.broadcast_to(np.asarray(v_limit, dtype=float), V.shape)
     usable = (g["lclass"].to_numpy(object) != "") & np.isfinite(d) & np.isfinite(V) & (V <= vlim)
     rows = []

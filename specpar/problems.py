@@ -475,7 +475,7 @@ def _sheet_notes(ps):
     used = list(dict.fromkeys(str(t).rsplit(" ", 1)[1] for t in ps.sheet["sptype"]))
     notes = [f"The stars are invented. Their apparent V magnitudes lie between {s['v_range'][0]:g} and "
              f"{s['v_range'][1]:g}."]
-    errs = ([f"photometric errors: the e_ columns (1 sigma)"] if ps.level == "full" else
+    errs = (["photometric errors: the e_ columns (1 sigma)"] if ps.level == "full" else
             [f"photometric errors: {_fmt_error(s['error_mag'], 'mag', 3)} mag (1 sigma) on every V"])
     errs.append("the calibration's intrinsic scatter σ(M_V) of each row")
     if ps.level == "full":

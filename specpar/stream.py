@@ -22,7 +22,6 @@ from __future__ import annotations
 import json
 import os
 import shutil
-import tempfile
 import uuid
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import fields, replace
@@ -130,7 +129,6 @@ class _ParquetSink:
 
     def write(self, frame: pd.DataFrame, meta: dict) -> None:
         import pyarrow as pa
-        import pyarrow.parquet as pq
         frame = frame.copy(deep=False)
         frame.attrs = {}
         if self.writer is None:

@@ -27,7 +27,6 @@ import os
 import warnings
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 import pytest
 

@@ -18,7 +18,6 @@ import pandas as pd
 import pytest
 
 import specpar
-from specpar.bands import BANDS
 from specpar.calibration import default_calibrations
 from specpar.ebvbound import bound_ebv, truncated_mean_square, truncated_quantile
 from specpar.estimate import EstimateOptions, _calibrate_rows, prepare_observables

@@ -15,7 +15,6 @@ practice). Data are invented.
 """
 from __future__ import annotations
 
-import os
 import signal
 import subprocess
 import sys

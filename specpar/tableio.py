@@ -38,6 +38,7 @@ import signal
 import stat
 import sys
 import threading
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -236,8 +237,11 @@ def _read_delimited(path: Path, fmt: str) -> tuple[pd.DataFrame, list]:
     header = body.split("\n", 1)[0]
     sep = _sniff_separator(header, fmt)
     # read as text, then type the columns (see _type_columns): ids such as 007 stay text
+    # index_col=False: a trailing separator on every row (a common export habit) is an empty
+    # last field, never a reason to shift the columns onto a row index; a non-empty extra
+    # field is refused below (pandas warns of the data loss; the warning is made an error)
     options = dict(keep_default_na=False, na_values=[""], skip_blank_lines=True, comment=None,
-                   dtype=object)
+                   dtype=object, index_col=False)
     if sep is None:
         names = header.split()
         _refuse_duplicates(names, str(path))
@@ -258,8 +262,10 @@ def _read_delimited(path: Path, fmt: str) -> tuple[pd.DataFrame, list]:
         reader = lambda: pd.read_csv(io.StringIO(body), sep=sep, **options)  # noqa: E731
     _refuse_duplicates(names, str(path))
     try:
-        frame = reader()
-    except pd.errors.ParserError as exc:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            frame = reader()
+    except (pd.errors.ParserError, pd.errors.ParserWarning) as exc:
         raise ValueError(f"cannot read {path} as {fmt}: {exc}; every row must have as many fields as "
                          "the header (quote text that holds the separator)") from None
     except Exception as exc:

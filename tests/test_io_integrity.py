@@ -582,3 +582,20 @@ def test_fixed_width_text_with_a_header_line(tmp_path):
     bad = _write(tmp_path / "bad.txt", "id sptype V\nFW-1 K0 III 10.5\n")
     with pytest.raises(ValueError, match="fixed-width"):
         read_table(bad)
+
+
+def test_trailing_separator_on_every_row_keeps_the_columns(tmp_path):
+    # regression: a trailing comma on every row (a spreadsheet export habit) made pandas use the
+    # first column as a row index, shifting every column by one (id read as the type ...)
+    p = tmp_path / "trail.csv"
+    p.write_text("id,sptype,B,e_B,V,e_V\nRV-1,K1III,11.2,0.02,10.1,0.02,\nRV-2,G2V,10.6,0.02,10.0,0.02,\n")
+    t = read_table(p)
+    assert list(t.colnames) == ["id", "sptype", "B", "e_B", "V", "e_V"]
+    assert list(t["id"]) == ["RV-1", "RV-2"] and list(t["sptype"]) == ["K1III", "G2V"]
+
+
+def test_extra_field_with_data_is_refused(tmp_path, capsys):
+    p = tmp_path / "extra.csv"
+    p.write_text("id,sptype,B,e_B,V,e_V\nRV-1,K1III,11.2,0.02,10.1,0.02,7\n")
+    code, _, err = run(capsys, "estimate", p, "-o", tmp_path / "o.csv")
+    assert "as many fields as the header" in one_line_error(code, err)

@@ -508,6 +508,9 @@ def check_output(path, fmt=None, *, inputs=(), overwrite=False, what="output") -
             raise ValueError(f"{sidecar_path(path)} (the metadata file written beside a {fmt} output) is "
                              f"{'a symbolic link' if stat.S_ISLNK(side.st_mode) else _kind_of(side.st_mode)}; "
                              "refusing to replace it; choose another output name")
+        if side is not None and not overwrite:
+            raise ValueError(f"{sidecar_path(path)} (the metadata file written beside a {fmt} output) "
+                             "exists; use --overwrite (Python: overwrite=True) to replace it with the output")
     try:
         st = os.lstat(path)
     except FileNotFoundError:
@@ -1063,9 +1066,6 @@ def write_table(table, path, fmt=None, *, inputs=(), overwrite=False, max_field_
 
         def side_writer(tmp):
             Path(tmp).write_text(text, encoding="utf-8")
-        try:
-            st = os.lstat(side)
-            replace = stat.S_ISREG(st.st_mode)
-        except FileNotFoundError:
-            replace = False
-        atomic_write(side, side_writer, inputs=inputs, overwrite=replace, what="metadata sidecar")
+        atomic_write(side, side_writer, inputs=inputs, overwrite=overwrite, what="metadata sidecar")
+        if not _is_stdout(path):  # the sidecar is as private as the table it describes
+            os.chmod(side, stat.S_IMODE(os.stat(path).st_mode))

@@ -599,3 +599,21 @@ def test_extra_field_with_data_is_refused(tmp_path, capsys):
     p.write_text("id,sptype,B,e_B,V,e_V\nRV-1,K1III,11.2,0.02,10.1,0.02,7\n")
     code, _, err = run(capsys, "estimate", p, "-o", tmp_path / "o.csv")
     assert "as many fields as the header" in one_line_error(code, err)
+
+
+def test_csv_sidecar_is_not_replaced_without_overwrite_and_keeps_the_table_mode(tmp_path, capsys):
+    # regression: an existing <name>.specpar.json was replaced without --overwrite, and the sidecar
+    # of a 0600 output was created 0644
+    src = tmp_path / "in.csv"
+    src.write_text("id,sptype,B,V\nS1,K0III,11.6,10.5\n")
+    out = tmp_path / "o.csv"
+    side = tmp_path / "o.csv.specpar.json"
+    side.write_text("old")
+    code, _, err = run(capsys, "estimate", src, "-o", out)
+    assert "exists" in one_line_error(code, err) and side.read_text() == "old" and not out.exists()
+    side.unlink()
+    out.write_text("x")
+    out.chmod(0o600)
+    code, _, _ = run(capsys, "estimate", src, "-o", out, "--overwrite")
+    assert code == 0
+    assert stat.S_IMODE(out.stat().st_mode) == 0o600 and stat.S_IMODE(side.stat().st_mode) == 0o600

@@ -687,17 +687,29 @@ def _reddening_steps(ctx, i, star, used, fit, touched, colour_known, ref_band):
                      text="one band only: the colour excess cannot be measured and is taken as 0 "
                           "(no extinction correction)"),
                 Step(f"A_{ref_band}", "Extinction", lhs=f"A_{{{ref_band}}}", value=0.0)], _dm_direct(ctx, i, ref_band)
-    ebv_step = _colour_excess_step(ctx, i, used)
+    # a row whose fitted E(B-V) fell below 0 is held at 0: not the exact two-observable
+    # solution, so it is shown as a fit (table, hand route) and the bound is said in words
+    at_bound = bool(int(r["flags"][i]) & int(Flag.EBV_AT_BOUND))
+    ebv_step = None if at_bound else _colour_excess_step(ctx, i, used)
     if ebv_step is not None:  # two observables: exact, written out
         ext = [_extinction_step(ctx, i, b) for b in dict.fromkeys(["V", ref_band])]
         return [ebv_step] + ext, _dm_direct(ctx, i, ref_band)
     star.fit, star.chi2, star.dof = fit, float(r["chi2"][i]), int(r["dof"][i])
+    ebv_text = "from the least-squares fit over all bands (table)"
+    dm_text = ("least-squares fit over all bands (table): each band gives m - M - A; the fit weights "
+               "them with the photometric errors and the calibration's scatter (correlations between "
+               "bands included)")
+    if at_bound:
+        raw, upper = float(r["ebv_unbounded"][i]), float(r["ebv_upper"][i])
+        ebv_text = (f"the fit puts E(B-V) at {_fmt(raw, 'mag', ctx.decimals)} mag, below 0, which no dust can "
+                    f"give: E(B-V) is held at 0 (95 % upper limit {_fmt(upper, 'mag', ctx.decimals)} mag); the "
+                    "colours are bluer than the type's, so the type or the photometry may be off")
+        dm_text += ("; with E(B-V) held at 0 the colour that is too blue is read as an earlier subtype within "
+                    "the calibration's scatter, which moves the distance modulus away from the hand value")
     ebv_step = Step("ebv", "Colour excess", lhs="E(B-V)", value=float(r["ebv"][i]),
-                    error=float(r["e_ebv"][i]), text="from the least-squares fit over all bands (table)")
+                    error=float(r["e_ebv"][i]), text=ebv_text)
     dm_step = Step("dm", "Distance modulus", lhs="(m-M)_{0}", value=float(r["dm"][i]), error=float(r["e_dm"][i]),
-                   text="least-squares fit over all bands (table): each band gives m - M - A; the fit weights "
-                        "them with the photometric errors and the calibration's scatter (correlations between "
-                        "bands included)")
+                   text=dm_text)
     ext = [_extinction_step(ctx, i, b) for b in dict.fromkeys(["V"] + touched)]
     for st in ext[1:]:  # the law is named once
         st.source = "R_B = R_V + 1 by the definition of E(B-V)" if st.key == "A_B" else ""

@@ -487,3 +487,17 @@ def test_fitted_rv_at_the_law_limit_is_written_as_a_limit():
     assert "this is a limit, not a measurement" in limit.step("A_V").source
     assert "R_V at the limit" in limit.step("e_dm").text and "R_V uncertainty (±" not in limit.step("e_dm").text
     assert "limit" not in free.step("A_V").source and "R_V uncertainty (±" in free.step("e_dm").text
+
+
+def test_key_of_a_row_held_at_the_reddening_bound_is_one_chain():
+    """Regression: a star bluer than its type (E(B-V) held at 0) showed the exact two-band
+    E(B-V) = -0.48 and V - M_V = 8.150 while the distance step used the bounded fit's
+    modulus: the steps contradicted each other. Now the key shows the fit, the bound in
+    words, and the distance from the modulus it shows."""
+    t = pd.DataFrame({"id": ["BLUE-1"], "sptype": ["B9V"], "B": [8.10], "e_B": [0.01],
+                      "V": [8.65], "e_V": [0.01]})  # invented
+    md = render_markdown(worked_solutions(t))
+    assert "held at 0" in md and "E(B-V) = 0.000" in md
+    dm_shown = re.search(r"\(m-M\)_0 = (\d+\.\d+) ± ", md).group(1)
+    assert f"10^({dm_shown[:4]}" in md  # the distance step starts from the modulus shown
+    check_equations(md)

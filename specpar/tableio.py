@@ -463,6 +463,18 @@ def _is_stdout(path) -> bool:
     return str(path) == "-"
 
 
+def _check_replaceable(path, st, overwrite, what) -> None:
+    """An existing output may be replaced only when it is a regular file and overwriting is allowed."""
+    if stat.S_ISLNK(st.st_mode):
+        raise ValueError(f"{what} {path} is a symbolic link; refusing to replace it (its target would "
+                         "be left untouched); give the target's path or another name")
+    if not stat.S_ISREG(st.st_mode):
+        raise ValueError(f"{what} {path} exists and is {_kind_of(st.st_mode)}; refusing to replace it; "
+                         "choose another name")
+    if not overwrite:
+        raise ValueError(f"{what} {path} exists; choose another name or allow overwriting (--overwrite)")
+
+
 def check_output(path, fmt=None, *, inputs=(), overwrite=False, what="output") -> str:
     """Check an output path before any computing; returns the format name.
 
@@ -515,14 +527,7 @@ def check_output(path, fmt=None, *, inputs=(), overwrite=False, what="output") -
         st = os.lstat(path)
     except FileNotFoundError:
         return fmt
-    if stat.S_ISLNK(st.st_mode):
-        raise ValueError(f"{what} {path} is a symbolic link; refusing to replace it (its target would "
-                         "be left untouched); give the target's path or another name")
-    if not stat.S_ISREG(st.st_mode):
-        raise ValueError(f"{what} {path} exists and is {_kind_of(st.st_mode)}; refusing to replace it; "
-                         "choose another name")
-    if not overwrite:
-        raise ValueError(f"{what} {path} exists; choose another name or allow overwriting (--overwrite)")
+    _check_replaceable(path, st, overwrite, what)
     if not os.access(path, os.W_OK):
         raise ValueError(f"{what} {path} exists and is read-only; refusing to replace it")
     return fmt
@@ -752,14 +757,7 @@ def _check_path_only(path, inputs, overwrite, what):
         st = os.lstat(path)
     except FileNotFoundError:
         return
-    if stat.S_ISLNK(st.st_mode):
-        raise ValueError(f"{what} {path} is a symbolic link; refusing to replace it (its target would "
-                         "be left untouched); give the target's path or another name")
-    if not stat.S_ISREG(st.st_mode):
-        raise ValueError(f"{what} {path} exists and is {_kind_of(st.st_mode)}; refusing to replace it; "
-                         "choose another name")
-    if not overwrite:
-        raise ValueError(f"{what} {path} exists; choose another name or allow overwriting (--overwrite)")
+    _check_replaceable(path, st, overwrite, what)
 
 
 # ----------------------------------------------------------------------------- writing

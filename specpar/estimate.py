@@ -186,6 +186,7 @@ class PreparedInput:
     parsed: pd.DataFrame
     parse_codes: np.ndarray
     bad_error: np.ndarray = None  # (N,) bit mask: magnitude not used, its error is unusable
+    bad_error_large: np.ndarray = None  # (N,) the part of bad_error whose error is above max_error
     detail: np.ndarray = None  # (N,) per-row text (e.g. conflicting colour columns)
     mapping: dict = None  # our column name -> input column used
 
@@ -284,6 +285,7 @@ def prepare_observables(frame_in: pd.DataFrame, opts: EstimateOptions) -> Prepar
     rejected = np.zeros(N, np.int64)
     defaulted = np.zeros(N, np.int64)
     bad_error = np.zeros(N, np.int64)
+    bad_error_large = np.zeros(N, np.int64)
     max_error = getattr(opts, "max_error", MAX_MAG_ERROR)
     for k, (name, row) in enumerate(specs):
         vals, bad = numeric_values(frame[name])
@@ -295,8 +297,10 @@ def prepare_observables(frame_in: pd.DataFrame, opts: EstimateOptions) -> Prepar
         if ecol in frame.columns:
             errs, ebad = numeric_values(frame[ecol])  # ebad: given, but not a finite number
             with np.errstate(invalid="ignore"):
-                ebad |= (errs <= 0) | (errs > max_error)
+                elarge = np.isfinite(errs) & (errs > max_error)
+                ebad |= (errs <= 0) | elarge
             ebad &= np.isfinite(vals)  # (only matters where the magnitude is given)
+            bad_error_large |= (elarge & ebad).astype(np.int64) << k
             errs = np.where(ebad, np.nan, errs)
             vals = np.where(ebad, np.nan, vals)
         else:
@@ -339,7 +343,8 @@ def prepare_observables(frame_in: pd.DataFrame, opts: EstimateOptions) -> Prepar
     codes = np.where(codes < 0, len(uniques), codes)
     L = np.stack([row for _, row in specs])
     return PreparedInput(frame, Observables(y, sig, L), [n for n, _ in specs], flags, rejected,
-                         defaulted, parsed, codes, bad_error=bad_error, detail=detail, mapping=mapping)
+                         defaulted, parsed, codes, bad_error=bad_error, bad_error_large=bad_error_large,
+                         detail=detail, mapping=mapping)
 
 
 # ----------------------------------------------------------------------------- solving
@@ -609,24 +614,30 @@ def _combine_codes(*arrays) -> np.ndarray:
     return code
 
 
-def _notes(flags, detail, rejected, defaulted, obs_names, bad_error=None):
+def _notes(flags, detail, rejected, defaulted, obs_names, bad_error=None, bad_error_large=None,
+           max_error=MAX_MAG_ERROR):
     """Readable note and flag names per row.
 
     The flag sentences and band lists are built once per distinct combination
     (there are few); the per-row detail text is appended with a vectorised join.
     """
     bad_error = np.zeros_like(rejected) if bad_error is None else bad_error
-    codes = _combine_codes(flags, rejected, defaulted, bad_error)
+    large = np.zeros_like(rejected) if bad_error_large is None else bad_error_large
+    codes = _combine_codes(flags, rejected, defaulted, bad_error, large)
     first = np.unique(codes, return_index=True)[1]
     texts, names = [], []
     for i in first:
         f, r, x, be = int(flags[i]), int(rejected[i]), int(defaulted[i]), int(bad_error[i])
+        big = be & int(large[i])
         parts = [describe(f)] if f else []
         if r:
             parts.append("rejected: " + ", ".join(n for k, n in enumerate(obs_names) if r >> k & 1))
-        if be:
-            parts.append("not used, error zero, negative, not a number or above the limit "
-                         "(max_error): " + ", ".join(n for k, n in enumerate(obs_names) if be >> k & 1))
+        band_list = lambda m: ", ".join(n for k, n in enumerate(obs_names) if m >> k & 1)  # noqa: E731
+        if big:
+            parts.append(f"not used, error above max_error = {max_error:g} mag (a catalogue's 'no error' "
+                         f"value or a useless measurement): {band_list(big)}")
+        if be & ~big:
+            parts.append(f"not used, error zero, negative or not a finite number: {band_list(be & ~big)}")
         if x:
             parts.append("default error used for: " + ", ".join(n for k, n in enumerate(obs_names) if x >> k & 1))
         texts.append("; ".join(parts))
@@ -955,7 +966,8 @@ def run_estimate(table, opts: EstimateOptions):
         detail = np.where(pdetail != "", np.where(detail != "", detail + "; ", "") + pdetail, detail)
     if prep.detail is not None:
         detail = np.where(prep.detail != "", np.where(detail != "", detail + "; ", "") + prep.detail, detail)
-    note, codes = _notes(flags, detail, prep.rejected, prep.defaulted, prep.obs_names, prep.bad_error)
+    note, codes = _notes(flags, detail, prep.rejected, prep.defaulted, prep.obs_names, prep.bad_error,
+                         prep.bad_error_large, getattr(opts, "max_error", MAX_MAG_ERROR))
     results.update(flags=flags, flag_codes=codes, note=note)
     if opts.explain:
         R_rows, _ = coefficients_at(opts.law, rv_used)

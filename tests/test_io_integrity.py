@@ -617,3 +617,15 @@ def test_csv_sidecar_is_not_replaced_without_overwrite_and_keeps_the_table_mode(
     code, _, _ = run(capsys, "estimate", src, "-o", out, "--overwrite")
     assert code == 0
     assert stat.S_IMODE(out.stat().st_mode) == 0o600 and stat.S_IMODE(side.stat().st_mode) == 0o600
+
+
+@pytest.mark.parametrize("bad, reason", [(9.99, "above max_error = 1 mag"), (99.0, "above max_error = 1 mag"),
+                                         (0.0, "zero, negative or not a finite number"),
+                                         (-0.1, "zero, negative or not a finite number"),
+                                         (np.inf, "zero, negative or not a finite number")])
+def test_rejected_error_note_gives_the_actual_reason(bad, reason):
+    # regression (user trial): the note listed every possible reason instead of the one that applies
+    rows = pd.DataFrame([dict(SENTINEL_BASE, e_B=bad)])
+    rows[["B", "V", "J", "e_V", "e_J", "e_B"]] = rows[["B", "V", "J", "e_V", "e_J", "e_B"]].astype(float)
+    note = estimate(rows)["note"][0]
+    assert reason in note and note.count("not used") == 1

@@ -165,7 +165,7 @@ def spot_check(rows) -> None:
 
 def check_gaia_match(rows, g) -> None:
     """Structure checks of the cross-match: most stars matched, and G - V of the
-    A0-A1 dwarfs close to zero (Vega-like colours; common practice)."""
+    A0-A1 dwarfs close to zero (colours of the A0 V zero point of the magnitude systems; common practice)."""
     frac = np.mean(np.isfinite(g))
     assert frac > 0.8, f"only {frac:.0%} of the Hipparcos stars matched a Gaia source"
     gv = np.array([gi - r[1] for r, gi in zip(rows, g) if r[9].startswith(("A0V", "A1V"))])

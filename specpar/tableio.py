@@ -416,6 +416,9 @@ def read_table(path, fmt=None, *, hdu=None):
     """
     path = Path(path)
     fmt = guess_format(path, fmt)
+    if hdu is not None and fmt not in ("fits", "votable"):
+        raise ValueError(f"--hdu (hdu=) picks a table in a FITS or VOTable file; {path} is read as {fmt}, "
+                         "which holds one table: leave it out")
     _check_input_path(path)
     if fmt == "parquet":
         import pyarrow.parquet as pq

@@ -629,3 +629,11 @@ def test_rejected_error_note_gives_the_actual_reason(bad, reason):
     rows[["B", "V", "J", "e_V", "e_J", "e_B"]] = rows[["B", "V", "J", "e_V", "e_J", "e_B"]].astype(float)
     note = estimate(rows)["note"][0]
     assert reason in note and note.count("not used") == 1
+
+
+def test_hdu_on_a_single_table_format_is_an_error(tmp_path, capsys):
+    # regression (user trial): --hdu 3 on a CSV input was silently ignored
+    p = tmp_path / "one.csv"
+    p.write_text("id,sptype,B,V\nS1,K0III,11.6,10.5\n")
+    code, _, err = run(capsys, "estimate", p, "-o", tmp_path / "o.csv", "--hdu", "3")
+    assert "FITS or VOTable" in one_line_error(code, err)

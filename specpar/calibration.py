@@ -225,9 +225,15 @@ class CalibrationSet:
         for lc, fname in DEFAULT_FILES.items():
             if (folder / fname).exists():
                 self.by_class[lc] = load_calibration(folder / fname)
+        given = {}
         for p in extra or ():
             cal = load_calibration(p)
-            self.by_class[cal.luminosity_class] = cal
+            lc = cal.luminosity_class
+            if lc in given:
+                raise ValueError(f"two calibration files for luminosity class {lc}: {given[lc]} and {p}; "
+                                 "give one file per class")
+            given[lc] = p
+            self.by_class[lc] = cal
         if "V" not in self.by_class:
             raise ValueError(f"no dwarf (class V) calibration found in {folder.name}/")
 

@@ -637,3 +637,18 @@ def test_hdu_on_a_single_table_format_is_an_error(tmp_path, capsys):
     p.write_text("id,sptype,B,V\nS1,K0III,11.6,10.5\n")
     code, _, err = run(capsys, "estimate", p, "-o", tmp_path / "o.csv", "--hdu", "3")
     assert "FITS or VOTable" in one_line_error(code, err)
+
+
+def test_two_calibration_files_for_one_class_are_refused(tmp_path, capsys):
+    # regression (user trial): two --calibration files of class III were accepted silently,
+    # the second one winning
+    import shutil
+
+    from specpar.calibration import calibration_dir
+    a, b = tmp_path / "a.ecsv", tmp_path / "b.ecsv"
+    shutil.copy(calibration_dir() / "giants_III.ecsv", a)
+    shutil.copy(calibration_dir() / "giants_III.ecsv", b)
+    p = tmp_path / "one.csv"
+    p.write_text("id,sptype,B,V\nS1,K0III,11.6,10.5\n")
+    code, _, err = run(capsys, "estimate", p, "-o", tmp_path / "o.csv", "--calibration", a, "--calibration", b)
+    assert "two calibration files for luminosity class III" in one_line_error(code, err)

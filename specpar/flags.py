@@ -67,7 +67,8 @@ SENTENCES = {
                         "ebv_upper gives the 95 % upper limit"),
     Flag.PLX_TENSION: "photometric and trigonometric parallaxes disagree",
     Flag.PLX_REJECTED: "parallax or its error unusable and ignored",
-    Flag.PLX_LOW_SNR: "parallax error above 17.5 % of the parallax: 1/parallax is a biased distance (Lutz & Kelker 1973)",
+    Flag.PLX_LOW_SNR: ("parallax below 5.7 times its error (or not positive): 1/parallax is no fair distance "
+                       "(Lutz & Kelker 1973); use dist_plx_* or dist_comb_*"),
     Flag.PLX_UNITS_SUSPECT: "parallaxes look like arcsec, not mas: check units",
     Flag.PLX_COMBINED_WITHHELD: ("parallax and photometric distance disagree beyond the tension threshold: "
                                  "no combined distance given"),

@@ -1170,6 +1170,8 @@ def _cmd_worked(args) -> int:
                           calibrations=tuple(args.calibration or ()), columns=column_map(args.col))
     write_worked(ws, args.output, args.format, inputs=[args.input], overwrite=args.overwrite,
                  title=args.title or f"Worked solutions: {Path(args.input).name}")
+    n_solved = sum(st.solved for st in ws.stars)
+    print(f"specpar: worked solutions for {len(ws.stars)} rows -> {args.output} ({n_solved} with a distance)")
     return 0
 
 

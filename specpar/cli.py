@@ -64,7 +64,8 @@ def _add_estimate_options(p):
     p.add_argument("--fit-rv", action="store_true",
                    help="fit R_V per star where >= 3 magnitudes and clear reddening constrain it")
     p.add_argument("--mc", type=int, metavar="N", default=0,
-                   help="Monte Carlo error propagation with N draws per star (default: analytic)")
+                   help="Monte Carlo error propagation with N >= 10 draws per star; 0 (the default) "
+                        "means analytic first-order propagation")
     p.add_argument("--seed", type=int, default=0, help="seed for --mc (default 0)")
     p.add_argument("--default-error", type=float, default=0.05,
                    help="error in mag assumed where a magnitude has none (flagged; default 0.05)")

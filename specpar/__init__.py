@@ -7,8 +7,27 @@ from .calibration import CalibrationSet, load_calibration, default_calibrations 
 from .extinction import band_coefficients, LAWS  # noqa: E402
 from .estimate import estimate, EstimateOptions  # noqa: E402
 from .stream import estimate_file  # noqa: E402
-from .cluster import fit_cluster, ClusterResult, simulate_cluster  # noqa: E402
 from .calibrate import calibrate, write_calibrations, CalibrationFit  # noqa: E402
+
+# Cluster fitting loads scipy.optimize / scipy.ndimage; it is imported on first use
+# so that ``import specpar`` (and the estimate command) start faster.
+_LAZY = {"fit_cluster": "cluster", "ClusterResult": "cluster", "simulate_cluster": "cluster"}
+
+
+def __getattr__(name):
+    if name in _LAZY:
+        import importlib
+        value = getattr(importlib.import_module(f".{_LAZY[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    if name == "cluster":
+        import importlib
+        return importlib.import_module(f".{name}", __name__)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_LAZY))
 
 __all__ = ["estimate", "estimate_file", "EstimateOptions", "parse_sptypes", "CalibrationSet", "load_calibration",
            "default_calibrations", "band_coefficients", "LAWS", "fit_cluster", "ClusterResult",

@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from astropy.table import Column, Table
-from scipy import stats
+from scipy.special import chdtrc
 
 from . import __version__
 from .bands import BANDS, BAND_NAMES, CALIBRATION_COLOURS, band_index, chain_matrices
@@ -831,6 +831,22 @@ def _solve_rows(frame, prep, rc, cals, opts) -> dict:
     return {k: np.concatenate([part[k] for part in parts])[:N] for k in parts[0]}
 
 
+def _chi2_sf(x, dof):
+    """Chi-square survival function, value for value what ``scipy.stats.chi2.sf`` returns.
+
+    1 at x <= 0, 0 at x = inf, NaN at NaN, ``chdtrc`` in between (the function
+    ``scipy.stats.chi2.sf`` calls); calling it directly skips the import of
+    ``scipy.stats`` and the argument checks of the generic distribution class.
+    ``dof`` must be >= 1.
+    """
+    x = np.asarray(x, dtype=float)
+    inside = (x > 0) & (x < np.inf)
+    out = np.where(x <= 0, 1.0, 0.0)
+    out[np.isnan(x)] = np.nan
+    out[inside] = chdtrc(np.broadcast_to(dof, x.shape)[inside], x[inside])
+    return out
+
+
 def _apply_ebv_bound(part) -> dict:
     """E(B-V) >= 0 (see :mod:`specpar.ebvbound`): rows fitted below 0 are held at 0, with
     the distance modulus of that fit, errors widened by what the bound allows, and the
@@ -839,7 +855,7 @@ def _apply_ebv_bound(part) -> dict:
                   part["dof"], part["colour_known"])
     at = b.at_bound
     with np.errstate(invalid="ignore"):
-        p_value = np.where(b.dof > 0, stats.chi2.sf(b.chi2, np.maximum(b.dof, 1)), np.nan)
+        p_value = np.where(b.dof > 0, _chi2_sf(b.chi2, np.maximum(b.dof, 1)), np.nan)
     return dict(
         dm=b.dm, e_dm=b.e_dm, ebv=b.ebv, e_ebv=b.e_ebv, chi2=b.chi2, dof=b.dof, p_value=p_value,
         at_bound=at, ebv_upper=b.ebv_upper, ebv_unbounded=b.ebv_unbounded, e_ebv_unbounded=b.e_ebv_unbounded,
@@ -897,18 +913,18 @@ def _ebv_detail(fit, flags) -> np.ndarray:
     inconsistency); any other row at the bound has them in ``ebv_unbounded`` and
     ``ebv_upper`` and shares the flag's sentence.
     """
-    from .numfmt import decimals_for, format_pm_array
+    from .numfmt import decimals_for, format_each, format_pm_array
     out = np.full(len(flags), "", dtype=object)
     rows = np.flatnonzero(fit["at_bound"] & ((flags & int(Flag.EBV_NEGATIVE)) != 0))
     if rows.size == 0:
         return out
     raw, e_raw, upper = fit["ebv_unbounded"][rows], fit["e_ebv_unbounded"][rows], fit["ebv_upper"][rows]
-    sigma = np.char.mod("%.1f", -raw / e_raw).astype(object)
+    sigma = format_each("%.1f", -raw / e_raw)
     text = "unbounded fit E(B-V) = " + format_pm_array(raw, e_raw) + " (" + sigma + " sigma below 0)"
     lim = np.full(rows.size, "", dtype=object)
     dec = decimals_for(upper)
     for d in np.unique(dec):
-        lim[dec == d] = np.char.mod(f"%.{d}f", upper[dec == d]).astype(object)
+        lim[dec == d] = format_each(f"%.{d}f", upper[dec == d])
     out[rows] = text + f"; E(B-V) held at 0, {100 * UPPER_LIMIT_LEVEL:g} % upper limit " + lim
     return out
 

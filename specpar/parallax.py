@@ -400,7 +400,8 @@ def _units_suspect(p: _Parallaxes, z, dm, e_dm, threshold):
 # ----------------------------------------------------------------------------- diagnosis
 
 def _fmt(spec, values) -> np.ndarray:
-    return np.char.mod(spec, np.asarray(values, float)).astype(object)
+    from .numfmt import format_each
+    return format_each(spec, values)
 
 
 def _best_class(rows, results, plx, e_plx, cals, sptnum, lc_bright, lc_faint):

@@ -101,8 +101,9 @@ def observable_groups(valid):
     for k in range(1, valid.shape[1] + 1):
         rows = order[bounds[k - 1]:bounds[k]]
         if rows.size:
-            # used observables first, each row's in column order (stable sort of "not used")
-            kidx = np.argsort(~valid[rows], axis=1, kind="stable")[:, :k]
+            # each row's used observables in column order: the row-major nonzero entries,
+            # exactly k per row (same indices as a stable argsort of "not used", cut at k)
+            kidx = np.nonzero(valid[rows])[1].reshape(rows.size, k)
             yield rows, kidx
 
 

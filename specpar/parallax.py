@@ -159,7 +159,9 @@ def _tension_chunk(plx, e_plx, dm, e_dm):
         over_plx = np.where(y > 0, (dm - 10.0 + 5.0 * np.log10(np.abs(y))) / e_dm, -np.inf)
         # nodes over whichever variable is narrower in parallax, so that the other is smooth
         arg = np.where(e_plx > spread, over_dm, over_plx)
-        f, q = ndtr(arg) @ _WEIGHTS_N, ndtr(-arg) @ _WEIGHTS_N
+        # row-wise sums, not a matrix product: BLAS sums in an order that depends on the
+        # number of rows, and a row's result must not depend on its block (streaming)
+        f, q = (ndtr(arg) * _WEIGHTS_N).sum(axis=-1), (ndtr(-arg) * _WEIGHTS_N).sum(axis=-1)
         z = np.where(f < q, ndtri(f), -ndtri(q))
         deep = ~np.isfinite(z)  # beyond ~37 sigma: logarithms, nodes over dm (never all -inf)
         if deep.any():

@@ -10,8 +10,16 @@ renamed into place.
 
 A Parquet dataset (a folder of Parquet files, possibly hive-partitioned as
 ``key=value/`` folders) is processed file by file; the output folder mirrors
-the input's layout, so it carries the same partitioning. Other formats (CSV,
-text, ECSV, FITS, VOTable) are read and written whole by :mod:`specpar.tableio`.
+the input's layout, so it carries the same partitioning.
+
+A CSV or text file written to CSV or text is streamed too, with the very rules
+of the whole-table reader and writer of :mod:`specpar.tableio` (leading-comment
+block, row-count check, column types decided for the whole file on a first pass
+that keeps no rows, formula escaping, sidecar metadata): the output bytes are
+those of ``chunk_rows=0``. Where that cannot be promised (text in runs of
+blanks, an input the reader refuses, blocks whose result columns differ), the
+file goes through the whole-table path. Other combinations (ECSV, FITS,
+VOTable, and CSV to Parquet) are read and written whole by :mod:`specpar.tableio`.
 
 Because every row's result depends only on that row and the options (see
 :mod:`specpar.estimate`), the output is the same whatever the block size,
@@ -32,19 +40,21 @@ import pandas as pd
 
 from .estimate import EstimateOptions, run_estimate
 from .flags import Flag
-from .tableio import (atomic_write, check_columns_writable, clean_frame, guess_format, read_table,
-                      write_table)
+from .tableio import (_prepared_columns, _to_frame, _write_delimited, atomic_write, check_columns_writable,
+                      check_output, clean_frame, delimited_blocks, delimited_plan, guess_format, read_table,
+                      write_sidecar, write_table)
 
 __all__ = ["estimate_file", "estimate_frame", "DEFAULT_CHUNK_ROWS", "STREAM_FORMATS", "make_options"]
 
 #: Rows per block when streaming (memory grows with it, about 0.5 kB per row).
 DEFAULT_CHUNK_ROWS = 100_000
-#: Formats read and written block by block; others are read or written whole.
-#: CSV and text go through the whole-table reader and writer of
-#: :mod:`specpar.tableio` (leading-comment block, row-count check, lossless
-#: typing of ids, formula escaping, sidecar metadata), which a block reader
-#: cannot give; at scale, use Parquet.
+#: Formats read and written block by block through record batches; others are
+#: read or written whole, except CSV/text to CSV/text (:data:`DELIMITED_FORMATS`).
 STREAM_FORMATS = ("parquet",)
+#: CSV and text (comma- or tab-separated) are streamed from and to each other
+#: with the whole-table reader's and writer's rules (see :func:`_estimate_delimited`);
+#: text in runs of blanks or fixed-width columns is read whole.
+DELIMITED_FORMATS = ("csv", "text")
 _OPTION_NAMES = {f.name for f in fields(EstimateOptions)}
 
 
@@ -240,6 +250,89 @@ def _run_file(src, fmt_in, tmp_out, fmt_out, opts, chunk_rows, threads, bar, row
         sink.close()
 
 
+class _NotUniform(Exception):
+    """A block's output differs in columns, types or metadata from the first block's."""
+
+
+def _estimate_delimited(src, fmt_in, dst, fmt_out, opts, chunk_rows, overwrite, progress, max_field_length):
+    """CSV/text in, CSV/text out, block by block; the summary, or None when the file
+    must go through the whole-table path instead.
+
+    The output is byte for byte what the whole-table path writes (file and
+    sidecar): blocks are read with the whole-file reader's rules and column types
+    (:func:`specpar.tableio.delimited_plan`), solved row by row, and written with
+    its writer (header once, CRLF, formula escaping), the sidecar last. When a
+    block's result columns, their types or the metadata differ from the first
+    block's (e.g. a Cepheid column only some blocks have), the partial output is
+    discarded and None returned, so the caller falls back to the whole table.
+
+    References
+    ----------
+    RFC 4180 (CSV records and CRLF line ends); OWASP "CSV Injection" guidance
+    (formula escaping, common practice).
+    """
+    plan = delimited_plan(src, fmt_in, chunk_rows)
+    if plan is None:
+        return None
+    inputs = [src, *(opts.calibrations or ())]
+    check_output(dst, fmt_out, inputs=inputs, overwrite=overwrite)
+    if max_field_length is not None and not (isinstance(max_field_length, (int, np.integer))
+                                             and max_field_length >= 1):
+        raise ValueError(f"max_field_length must be a whole number >= 1, got {max_field_length!r}")
+    bar = None  # started once the first block is solved: an error in the options or columns comes alone
+    state = {"first": None, "escaped": False, "cut": {}, "meta": None,
+             "summary": {"rows": 0, "with_distance": 0, "flagged": 0, "column_mapping": {}}}
+    block_opts = replace(opts, progress=False)
+
+    def writer(tmp):
+        nonlocal bar
+        import gzip
+        opener = gzip.open if str(dst).lower().endswith(".gz") else open
+        with opener(tmp, "wt", encoding="utf-8", newline="") as fh:
+            for table in delimited_blocks(plan):
+                check_columns_writable(table, fmt_out, max_field_length)
+                out = run_estimate(table, block_opts)
+                if bar is None and progress:
+                    bar = _progress(plan["rows"], True)
+                check_columns_writable(out, fmt_out, max_field_length)
+                meta = dict(out.meta.get("specpar", {}))
+                source, cut = _prepared_columns(out, max_field_length)
+                frame = _to_frame(source)
+                sig = (list(frame.columns), [str(frame[c].dtype) for c in frame.columns],
+                       json.dumps(meta, sort_keys=True, default=str))
+                if state["first"] is None:
+                    state["first"], state["meta"] = sig, meta
+                    state["summary"]["column_mapping"] = dict(meta.get("column_mapping") or {})
+                elif sig != state["first"]:
+                    raise _NotUniform()
+                for k, n in cut.items():
+                    state["cut"][k] = state["cut"].get(k, 0) + n
+                try:
+                    state["escaped"] |= _write_delimited(frame, fh, fmt_out, True,
+                                                         header=state["summary"]["rows"] == 0)
+                except (ValueError, TypeError, OSError, UnicodeError) as exc:
+                    raise ValueError(f"cannot write {dst} as {fmt_out}: {exc}") from None
+                flags = np.asarray(out["flags"])
+                summ = state["summary"]
+                summ["rows"] += len(out)
+                summ["with_distance"] += int((flags & int(Flag.NO_DISTANCE) == 0).sum())
+                summ["flagged"] += int((flags != 0).sum())
+                if bar is not None:
+                    bar.update(len(out))
+    try:
+        atomic_write(dst, writer, inputs=inputs, overwrite=overwrite)
+    except _NotUniform:
+        return None
+    finally:
+        if bar is not None:
+            bar.close()
+    meta = state["meta"]
+    if state["cut"]:
+        meta["text_cut_to_max_field_length"] = {"max_field_length": int(max_field_length), "cells": state["cut"]}
+    write_sidecar(dst, meta, state["escaped"], inputs=inputs, overwrite=overwrite)
+    return state["summary"]
+
+
 def publish_folder(build, dst, *, overwrite=False, inputs=()):
     """Build a folder through ``build(temporary_folder)`` and rename it to ``dst``.
 
@@ -300,7 +393,8 @@ def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAU
         Format names of :data:`specpar.tableio.FORMATS` when the extension does not tell.
     chunk_rows : int
         Rows per block (default 100,000); 0 reads and writes the table whole.
-        Parquet and CSV are streamed; other formats are read or written whole.
+        Parquet to Parquet and CSV/text to CSV/text are streamed (the CSV bytes
+        equal those of ``chunk_rows=0``); other formats are read or written whole.
     threads : int, optional
         Blocks solved at once in threads of this process (default: 2 where
         there are 2 cores or more, else 1); the results do not depend on it.
@@ -375,6 +469,12 @@ def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAU
                 bar.close()
     fmt_in = guess_format(src, in_format)
     fmt_out = guess_format(str(dst), out_format) if str(dst) != "-" else (out_format or "csv")
+    if chunk_rows and hdu is None and fmt_in in DELIMITED_FORMATS and fmt_out in DELIMITED_FORMATS:
+        done = _estimate_delimited(src, fmt_in, dst, fmt_out, opts, chunk_rows, overwrite, progress,
+                                   max_field_length)
+        if done is not None:
+            return done
+        chunk_rows = 0  # read whole: its reader gives the result or the one clear error
     if chunk_rows == 0 or fmt_in not in STREAM_FORMATS or fmt_out not in STREAM_FORMATS or hdu is not None:
         inputs = [src, *(opts.calibrations or ())]
         table = read_table(src, in_format, hdu=hdu)

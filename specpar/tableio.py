@@ -111,6 +111,21 @@ def _kind_of(st_mode) -> str:
     return "not a regular file"
 
 
+def _apply_input_sidecar(t: Table, path: Path) -> Table:
+    """Metadata and formula escaping from the sidecar of a CSV/text file we wrote."""
+    side = sidecar_path(path)
+    if side.is_file():
+        try:
+            info = json.loads(side.read_text("utf-8"))
+        except (OSError, ValueError):
+            info = {}
+        if isinstance(info, dict) and info.get("specpar"):
+            t.meta["specpar"] = info["specpar"]
+        if isinstance(info, dict) and info.get("formula_cells_escaped"):
+            _unescape_formulas(t)
+    return t
+
+
 def _check_input_path(path: Path, what="input file") -> None:
     try:
         st = path.stat()
@@ -277,6 +292,198 @@ def _read_delimited(path: Path, fmt: str) -> tuple[pd.DataFrame, list]:
     return frame, meta
 
 
+class _Body:
+    """The text of a CSV/text file after its leading ``#``/blank block, read lazily
+    (gzip and a byte-order mark handled as :func:`_decode_text` does; lines end at
+    ``\\n`` only, as in the whole-file reader). ``meta`` holds the comment lines,
+    ``header`` the first line of the body ('' when there is none)."""
+
+    def __init__(self, path: Path):
+        with open(path, "rb") as raw:
+            gz = raw.read(2) == b"\x1f\x8b"
+        opener = gzip.open if gz else open
+        self.fh = opener(path, "rt", encoding="utf-8-sig", newline="\n")
+        self.meta, self.pending = [], ""
+        for line in self.fh:
+            stripped = line.strip()
+            if stripped.startswith("#"):
+                self.meta.append(stripped[1:].strip())
+            elif stripped:
+                self.pending = line
+                break
+        self.header = self.pending
+
+    def read(self, n=-1):
+        if self.pending:
+            out, self.pending = self.pending, ""
+            return out + (self.fh.read() if n is None or n < 0 else "")
+        return self.fh.read() if n is None or n < 0 else self.fh.read(n)
+
+    def __iter__(self):
+        if self.pending:
+            out, self.pending = self.pending, ""
+            yield out
+        yield from self.fh
+
+    def close(self):
+        self.fh.close()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+_READ_OPTIONS = dict(keep_default_na=False, na_values=[""], skip_blank_lines=True, comment=None,
+                     dtype=object, index_col=False)
+
+
+def _chunks(body: _Body, sep: str, chunk_rows: int):
+    """Blocks of rows as text, with the whole-file reader's options (its parser
+    warning of a lost field is an error here too)."""
+    def strict(call):
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            return call()
+    reader = strict(lambda: pd.read_csv(body, sep=sep, chunksize=chunk_rows, **_READ_OPTIONS))
+    with reader:
+        while True:
+            block = strict(lambda: next(reader, None))
+            if block is None:
+                return
+            yield block
+
+
+def _block_kinds(frame: pd.DataFrame) -> dict:
+    """Per column of one block: (kind, any missing) with kind one of 'empty',
+    'int', 'float', 'text', by the rules of :func:`_type_columns`."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    out = {}
+    for c in frame.columns:
+        s = frame[c]
+        given = s.dropna()
+        missing = len(given) != len(s)
+        if given.empty:
+            out[c] = ("empty", missing)
+            continue
+        try:
+            num = pd.to_numeric(given)
+        except (ValueError, TypeError):
+            out[c] = ("text", missing)
+            continue
+        arr = pa.array(given.to_numpy(dtype=object), type=pa.string())
+        if pc.any(pc.match_substring_regex(arr, _IDENTIFIER_LIKE)).as_py():
+            out[c] = ("text", missing)
+        else:
+            out[c] = ("int" if num.dtype.kind in "iu" else "float", missing)
+    return out
+
+
+_KIND_RANK = {"empty": 0, "int": 1, "float": 2, "text": 3}
+
+
+def delimited_plan(path, fmt: str, chunk_rows: int):
+    """First pass over a CSV/text file for block reading, or None when the file
+    must be read whole (:func:`read_table`), which then gives its own result or error.
+
+    The pass tokenises the whole file block by block, keeping no rows: it checks
+    what the whole-file reader checks (duplicate names, fields per row, the number
+    of data records) and decides each column's type for the whole file, so that
+    a column's type never depends on the block (a column that is numbers in early
+    rows and text later is text in every block).
+
+    Returns
+    -------
+    dict or None
+        ``path``, ``fmt``, ``sep``, ``meta`` (leading comments), ``kinds``
+        (column -> 'empty', 'int', 'float' or 'text'), ``columns``, ``rows``,
+        ``chunk_rows``; None to read the file whole.
+
+    References
+    ----------
+    RFC 4180 (CSV records, quoted line breaks).
+    """
+    path = Path(path)
+    try:
+        _check_input_path(path)
+        with _Body(path) as body:
+            meta, header = body.meta, body.header
+            if not header.strip():
+                return None
+            sep = _sniff_separator(header, fmt)
+            if sep is None:  # runs of blanks or fixed-width: whole-file reader
+                return None
+            quoted, lines = False, 0
+
+            def counted():
+                nonlocal quoted, lines
+                for ln in body:
+                    if not quoted and '"' in ln:
+                        quoted = True
+                    if ln.strip():
+                        lines += 1
+                    yield ln
+            rows = csv.reader(counted(), delimiter=sep)
+            names = next(rows)
+            if _duplicates(names):
+                return None
+            records = sum(1 for r in rows if len(r) > 1 or (r and r[0].strip()))
+        records = records if quoted else lines - 1
+        kinds, missing, total, columns = {}, {}, 0, None
+        with _Body(path) as body:
+            for block in _chunks(body, sep, chunk_rows):
+                if columns is None:
+                    columns = list(block.columns)
+                total += len(block)
+                for c, (k, miss) in _block_kinds(block).items():
+                    if _KIND_RANK[k] > _KIND_RANK[kinds.get(c, "empty")]:
+                        kinds[c] = k
+                    missing[c] = missing.get(c, False) or miss
+        if total == 0 or total != records or columns is None:
+            return None
+        kinds = {c: ("float" if kinds.get(c, "empty") == "int" and missing[c] else kinds.get(c, "empty"))
+                 for c in columns}
+    except Exception:  # the whole-file reader gives the one clear message
+        return None
+    return {"path": path, "fmt": fmt, "sep": sep, "meta": meta, "kinds": kinds, "columns": columns,
+            "rows": total, "chunk_rows": chunk_rows}
+
+
+def _apply_kinds(frame: pd.DataFrame, kinds: dict) -> pd.DataFrame:
+    """One block typed as :func:`_type_columns` types the whole file (``kinds`` from
+    :func:`delimited_plan`)."""
+    for c in frame.columns:
+        s, k = frame[c], kinds[c]
+        if k == "empty":
+            frame[c] = np.full(len(s), np.nan)
+        elif k == "text":
+            frame[c] = pd.Series(s.to_numpy(dtype=object), index=s.index, dtype=object)
+        elif k == "int":
+            frame[c] = pd.to_numeric(s).to_numpy()
+        else:
+            out = np.full(len(s), np.nan)
+            given = s.dropna()
+            if not given.empty:
+                out[s.notna().to_numpy()] = pd.to_numeric(given).to_numpy(dtype=float)
+            frame[c] = out
+    return frame
+
+
+def delimited_blocks(plan):
+    """Tables of ``plan['chunk_rows']`` rows of a CSV/text file, each exactly the
+    rows :func:`read_table` gives for that part of the file (same types, comments,
+    sidecar metadata and formula unescaping)."""
+    path = plan["path"]
+    with _Body(path) as body:
+        for block in _chunks(body, plan["sep"], plan["chunk_rows"]):
+            if list(block.columns) != plan["columns"]:
+                raise ValueError(f"{path} changed while it was being read; run again")
+            frame = clean_frame(_apply_kinds(block, plan["kinds"]), str(path))
+            yield _apply_input_sidecar(_frame_to_table(frame, plan["meta"]), path)
+
+
 #: Cells that look like identifiers, not numbers: leading zeros (007, 0042) or more
 #: digits than a double keeps (16 or more).
 _IDENTIFIER_LIKE = r"^\s*[+-]?(0\d|\d{16,}\s*$)"
@@ -435,18 +642,7 @@ def read_table(path, fmt=None, *, hdu=None):
     if fmt in ("csv", "text"):
         frame, meta = _read_delimited(path, fmt)
         frame = clean_frame(frame, str(path))
-        t = _frame_to_table(frame, meta)
-        side = sidecar_path(path)
-        if side.is_file():
-            try:
-                info = json.loads(side.read_text("utf-8"))
-            except (OSError, ValueError):
-                info = {}
-            if isinstance(info, dict) and info.get("specpar"):
-                t.meta["specpar"] = info["specpar"]
-            if isinstance(info, dict) and info.get("formula_cells_escaped"):
-                _unescape_formulas(t)
-        return t
+        return _apply_input_sidecar(_frame_to_table(frame, meta), path)
     try:
         t = _read_astropy(path, fmt, hdu)
     except ValueError as exc:
@@ -901,13 +1097,14 @@ def _units(table) -> dict:
     return {}
 
 
-def _write_delimited(frame, out, fmt, escape) -> bool:
+def _write_delimited(frame, out, fmt, escape, header=True) -> bool:
     """CSV (or tab-separated text) with CRLF line ends as RFC 4180 has them, so that
-    a cell holding a bare carriage return is quoted too."""
+    a cell holding a bare carriage return is quoted too. ``header=False`` appends
+    a further block of rows (streaming)."""
     sep = "," if fmt == "csv" else "\t"
     escaped = _escape_formulas(frame) if escape else False
     frame.to_csv(out, sep=sep, index=False, na_rep="", lineterminator="\r\n", quoting=csv.QUOTE_MINIMAL,
-                 float_format=None)
+                 float_format=None, header=header)
     return escaped
 
 
@@ -1060,13 +1257,19 @@ def write_table(table, path, fmt=None, *, inputs=(), overwrite=False, max_field_
 
     atomic_write(path, writer, inputs=inputs, overwrite=overwrite)
     if fmt in ("csv", "text"):
-        side = sidecar_path(path)
-        info = {"about": f"provenance of {Path(path).name}, written by specpar", "specpar": meta,
-                "formula_cells_escaped": bool(state.get("escaped"))}
-        text = json.dumps(info, indent=1, sort_keys=True, default=str)
+        write_sidecar(path, meta, bool(state.get("escaped")), inputs=inputs, overwrite=overwrite)
 
-        def side_writer(tmp):
-            Path(tmp).write_text(text, encoding="utf-8")
-        atomic_write(side, side_writer, inputs=inputs, overwrite=overwrite, what="metadata sidecar")
-        if not _is_stdout(path):  # the sidecar is as private as the table it describes
-            os.chmod(side, stat.S_IMODE(os.stat(path).st_mode))
+
+def write_sidecar(path, meta, escaped, *, inputs=(), overwrite=False) -> None:
+    """Write the provenance sidecar ``<path>.specpar.json`` of a CSV/text output
+    (after the table itself; with the table's permission bits)."""
+    side = sidecar_path(path)
+    info = {"about": f"provenance of {Path(path).name}, written by specpar", "specpar": meta,
+            "formula_cells_escaped": bool(escaped)}
+    text = json.dumps(info, indent=1, sort_keys=True, default=str)
+
+    def side_writer(tmp):
+        Path(tmp).write_text(text, encoding="utf-8")
+    atomic_write(side, side_writer, inputs=inputs, overwrite=overwrite, what="metadata sidecar")
+    if not _is_stdout(path):  # the sidecar is as private as the table it describes
+        os.chmod(side, stat.S_IMODE(os.stat(path).st_mode))

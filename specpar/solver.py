@@ -24,12 +24,11 @@ from scipy.special import chdtrc
 
 from .bands import BANDS, chain_matrices
 
-__all__ = ["Observables", "solve", "dm_to_pc", "SolverResult", "fit_draws", "fit_draws_compact",
+__all__ = ["Observables", "solve", "dm_to_pc", "SolverResult", "fit_draws_compact",
            "observable_groups"]
 
 _P, _ = chain_matrices()
 _FIXED_E = 1e12  # precision that pins E(B-V) = 0 when no colour is available
-_BIG = 1e30
 
 
 def dm_to_pc(dm):
@@ -256,7 +255,7 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
         come from the Fisher matrix of (dm, E(B-V), R_V) and one degree of
         freedom is spent on R_V.
     keep_weights : bool
-        Also return the inverse covariance per star (for :func:`fit_draws`).
+        Also return the inverse covariance per star (for :func:`fit_draws_compact`).
     codes : (N,) int, optional
         When given, ``absmag``, ``sub_modes``, ``var_mv`` and ``var_colour``
         hold one row per distinct calibration (e.g. per spectral type) and
@@ -359,42 +358,9 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
     )
 
 
-def fit_draws(weights, valid, colour_known, mag_known, ydiff, A):
-    """Refit many draws per star with each star's weights held fixed.
-
-    Parameters
-    ----------
-    weights : (m, K, K) inverse covariance of each star's nominal fit
-        (:func:`solve` with ``keep_weights=True``).
-    valid : (m, K) observables that fit used; colour_known, mag_known : (m,) bool.
-    ydiff : (m, n, K) observables minus the drawn absolute magnitudes.
-    A : (m, n, K, 2) design matrices of the draws.
-
-    Returns
-    -------
-    (m, n, 2) distance modulus and E(B-V) per draw; NaN where a draw needs an
-    observable with no calibration (e.g. a drawn subtype beyond a table's end).
-    """
-    v = valid[:, None, :]
-    bad = (v & ~np.isfinite(ydiff)).any(axis=-1)
-    A = A * v[..., None]
-    y = np.where(v, ydiff, 0.0)
-    WA = np.einsum("mkj,mnjp->mnkp", weights, A)
-    F = np.einsum("mnkp,mnkq->mnpq", A, WA)
-    b = np.einsum("mnkp,mnk->mnp", WA, y)
-    F[..., 1, 1] += np.where(colour_known, 0.0, _FIXED_E)[:, None]
-    F[..., 0, 0] += np.where(mag_known, 0.0, _FIXED_E)[:, None]
-    det = F[..., 0, 0] * F[..., 1, 1] - F[..., 0, 1] * F[..., 1, 0]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        dm = (F[..., 1, 1] * b[..., 0] - F[..., 0, 1] * b[..., 1]) / det
-        ebv = (F[..., 0, 0] * b[..., 1] - F[..., 1, 0] * b[..., 0]) / det
-    theta = np.stack([dm, np.where(colour_known[:, None], ebv, 0.0)], axis=-1)
-    theta[bad] = np.nan
-    return theta
-
-
 def fit_draws_compact(weights, colour_known, mag_known, ydiff, a0, a1):
-    """:func:`fit_draws` for stars that all use their k observables.
+    """Refit many draws per star with each star's weights held fixed, for stars that all use
+    their k observables.
 
     Parameters
     ----------

@@ -227,10 +227,6 @@ def _stream(blocks, sink, opts, threads, bar, empty):
     return summary
 
 
-def _sink_for(fmt, path):
-    return _ParquetSink(path)
-
-
 def _progress(total, enabled):
     if not enabled:
         return None
@@ -243,7 +239,7 @@ def _run_file(src, fmt_in, tmp_out, fmt_out, opts, chunk_rows, threads, bar, row
     if bar is not None and total is not None and bar.total is None:
         bar.total = total
         bar.refresh()
-    sink = _sink_for(fmt_out, tmp_out)
+    sink = _ParquetSink(tmp_out)
     try:
         return _stream(blocks, sink, opts, threads, bar, empty)
     finally:

@@ -152,6 +152,16 @@ def _check_kind(frame, target, source) -> None:
                          "map sptype to the column with the spectral types")
 
 
+def _take_one(candidates, target, what, mapping, used) -> None:
+    """Map ``target`` to the single candidate column; several are an error listing them."""
+    if len(candidates) > 1:
+        raise ValueError(f"{what}: {', '.join(map(repr, candidates))}; choose one with --col {target}=NAME "
+                         f"(Python: columns={{'{target}': NAME}})")
+    if candidates:
+        mapping[target] = candidates[0]
+        used.add(candidates[0])
+
+
 def resolve_columns(frame: pd.DataFrame, columns=None, *, recognise=True):
     """Rename the input's columns to ours; returns ``(frame, mapping)``.
 
@@ -210,12 +220,7 @@ def resolve_columns(frame: pd.DataFrame, columns=None, *, recognise=True):
                 continue
             hits = [n for n in names if n not in used and not _is_target(n)
                     and any(_matches(sp, n) for sp in spellings)]
-            if len(hits) > 1:
-                raise ValueError(f"several columns could be {target}: {', '.join(map(repr, hits))}; "
-                                 f"choose one with --col {target}=NAME (Python: columns={{'{target}': NAME}})")
-            if hits:
-                mapping[target] = hits[0]
-                used.add(hits[0])
+            _take_one(hits, target, f"several columns could be {target}", mapping, used)
     # a band, colour or parallax brings its error column along, spelled after the
     # column actually used (Vmag -> e_Vmag, Vmag_err ...; parallax -> parallax_error)
     used = set(mapping.values()) | set(columns.values())
@@ -232,13 +237,8 @@ def resolve_columns(frame: pd.DataFrame, columns=None, *, recognise=True):
         if src == t and not recognise:
             continue
         found = [n for e in _error_spellings(src) for n in lower.get(e, []) if n not in used]
-        found = list(dict.fromkeys(found))
-        if len(found) > 1:
-            raise ValueError(f"several columns could be the error of {src} ({et}): "
-                             f"{', '.join(map(repr, found))}; choose one with --col {et}=NAME")
-        if found:
-            mapping[et] = found[0]
-            used.add(found[0])
+        _take_one(list(dict.fromkeys(found)), et, f"several columns could be the error of {src} ({et})",
+                  mapping, used)
     # result names must be unique: a target that exists and is not itself mapped away
     sources = set(mapping.values())
     clash = [t for t in mapping if t in present and t not in sources]

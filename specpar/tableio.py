@@ -1271,5 +1271,4 @@ def write_sidecar(path, meta, escaped, *, inputs=(), overwrite=False) -> None:
     def side_writer(tmp):
         Path(tmp).write_text(text, encoding="utf-8")
     atomic_write(side, side_writer, inputs=inputs, overwrite=overwrite, what="metadata sidecar")
-    if not _is_stdout(path):  # the sidecar is as private as the table it describes
-        os.chmod(side, stat.S_IMODE(os.stat(path).st_mode))
+    os.chmod(side, stat.S_IMODE(os.stat(path).st_mode))  # as private as the table it describes

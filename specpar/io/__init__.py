@@ -1,0 +1,2 @@
+"""I/O layer: reading and writing tables (CSV, text, ECSV, FITS, VOTable,
+Parquet), column mapping, sidecars, atomic output and figures."""

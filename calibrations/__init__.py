@@ -1,0 +1,1 @@
+"""Shipped calibration tables (package data of specpar; see README.md here)."""

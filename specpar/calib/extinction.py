@@ -27,6 +27,7 @@ import numpy as np
 from dust_extinction import parameter_averages as _pa
 
 from ..core.bands import BANDS, band_index
+from ..core.errors import InputError
 
 __all__ = ["LAWS", "DEFAULT_LAW", "DEFAULT_RV", "band_coefficients", "check_law"]
 
@@ -45,12 +46,12 @@ DEFAULT_RV = 3.1
 def check_law(law: str, rv: float) -> None:
     """Raise ValueError naming the valid choices if ``law``/``rv`` are unusable."""
     if law not in LAWS:
-        raise ValueError(
+        raise InputError(
             f"unknown extinction law {law!r}; choose one of {', '.join(LAWS)}"
         )
     lo, hi = LAWS[law][0].Rv_range
     if not (np.isfinite(rv) and lo <= rv <= hi):
-        raise ValueError(
+        raise InputError(
             f"R_V = {rv} is outside the range of {law} [{lo} <= R_V <= {hi}]"
         )
 

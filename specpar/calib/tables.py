@@ -19,6 +19,7 @@ from scipy.interpolate import PchipInterpolator
 from ..core.bands import BANDS, CALIBRATION_COLOURS, chain_matrices
 from ..core.sptype import CLASS_ORDER
 from .resources import calibration_dir
+from ..core.errors import InputError
 
 __all__ = [
     "Calibration", "CalibrationSet", "CalibrationValues", "load_calibration",
@@ -149,15 +150,15 @@ def _blend(a: CalibrationValues, b: CalibrationValues) -> CalibrationValues:
 def _check_table(t: Table, path: str) -> None:
     missing = [c for c in REQUIRED_COLUMNS if c not in t.colnames]
     if missing:
-        raise ValueError(f"calibration {path}: missing column(s) {', '.join(missing)}; "
+        raise InputError(f"calibration {path}: missing column(s) {', '.join(missing)}; "
                          f"required are {', '.join(REQUIRED_COLUMNS)}")
     lc = t.meta.get("luminosity_class")
     if lc not in CLASS_ORDER:
-        raise ValueError(f"calibration {path}: meta 'luminosity_class' is {lc!r}; "
+        raise InputError(f"calibration {path}: meta 'luminosity_class' is {lc!r}; "
                          f"it must be one of {', '.join(CLASS_ORDER)}")
     x = np.asarray(t["sptnum"], dtype=float)
     if len(x) < 2 or not np.all(np.diff(x) > 0):
-        raise ValueError(f"calibration {path}: 'sptnum' must have at least two rows, strictly increasing")
+        raise InputError(f"calibration {path}: 'sptnum' must have at least two rows, strictly increasing")
 
 
 def read_ecsv(path, what="calibration") -> Table:
@@ -165,9 +166,9 @@ def read_ecsv(path, what="calibration") -> Table:
     try:
         return Table.read(path, format="ascii.ecsv")
     except FileNotFoundError:
-        raise ValueError(f"{what} file {path} does not exist") from None
+        raise InputError(f"{what} file {path} does not exist") from None
     except Exception as exc:  # astropy raises several types for malformed ECSV
-        raise ValueError(f"{what} file {path} is not a readable ECSV table: {exc}") from None
+        raise InputError(f"{what} file {path} is not a readable ECSV table: {exc}") from None
 
 
 @lru_cache(maxsize=32)
@@ -217,12 +218,12 @@ class CalibrationSet:
             cal = load_calibration(p)
             lc = cal.luminosity_class
             if lc in given:
-                raise ValueError(f"two calibration files for luminosity class {lc}: {given[lc]} and {p}; "
+                raise InputError(f"two calibration files for luminosity class {lc}: {given[lc]} and {p}; "
                                  "give one file per class")
             given[lc] = p
             self.by_class[lc] = cal
         if "V" not in self.by_class:
-            raise ValueError(f"no dwarf (class V) calibration found in {folder.name}/")
+            raise InputError(f"no dwarf (class V) calibration found in {folder.name}/")
 
     def describe(self) -> dict:
         """Class -> one-line description, for output metadata."""

@@ -21,6 +21,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from .errors import InputError
 
 __all__ = ["Band", "BANDS", "BAND_NAMES", "band_index", "chain_matrices"]
 
@@ -76,7 +77,7 @@ def band_index(name: str) -> int:
     try:
         return BAND_NAMES.index(name)
     except ValueError:
-        raise ValueError(
+        raise InputError(
             f"unknown band {name!r}; known bands are {', '.join(BAND_NAMES)}"
         ) from None
 

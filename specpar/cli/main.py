@@ -1,0 +1,66 @@
+"""``specpar`` entry point: the parser made from the command modules, and the
+one place where user errors become a one-line message."""
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from specpar.core.about import VERSION
+from specpar.core.errors import InputError
+
+from .common import Parser
+
+__all__ = ["main", "build_parser"]
+
+#: Command modules of this package, in the order ``specpar --help`` lists them;
+#: each exposes ``register(subparsers)``.
+COMMANDS = ("estimate", "calibrations", "calibrate", "bench")
+#: Library modules that still register their own command (moved here as the layers are split).
+_LIBRARY_COMMANDS = ("parallax", "cluster", "worked", "problems")
+
+DESCRIPTION = ("Distances to stars from MK spectral type and photometry (spectroscopic parallax): "
+               "calibrated absolute magnitudes and intrinsic colours, colour excess, extinction, "
+               "distance modulus and distance with uncertainties.")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The ``specpar`` parser with every command registered."""
+    parser = Parser(prog="specpar", description=DESCRIPTION)
+    parser.add_argument("--version", action="version", version=f"specpar {VERSION}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=Parser)
+    for name in COMMANDS:
+        importlib.import_module(f"{__package__}.{name}").register(sub)
+    for name in _LIBRARY_COMMANDS:
+        importlib.import_module(f"specpar.{name}").register_cli(sub)
+    return parser
+
+
+def main(args=None) -> int:
+    """Entry point; returns the exit status."""
+    from specpar.tableio import Terminated
+    parser = build_parser()
+    ns = parser.parse_args(args)
+    if not ns.command:
+        parser.print_help()
+        return 2
+    try:
+        return ns.func(ns)
+    except (ValueError, TypeError, OSError, KeyError) as exc:
+        msg = exc.args[0] if isinstance(exc, KeyError) and exc.args else exc
+        print(f"specpar: error: {msg}", file=sys.stderr)
+        return 1
+    except MemoryError:
+        print("specpar: error: out of memory; use smaller blocks (--chunk-rows) or fewer draws (--mc)",
+              file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("specpar: interrupted", file=sys.stderr)
+        return 130
+    except Terminated:
+        print("specpar: terminated (SIGTERM); no output written, temporary file removed", file=sys.stderr)
+        return 143
+
+
+if __name__ == "__main__":
+    sys.exit(main())

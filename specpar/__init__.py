@@ -1,6 +1,6 @@
 """specpar: distances to stars from MK spectral type and photometry
 (spectroscopic parallax), with extinction, error propagation and flags."""
-__version__ = "0.1.0"
+from .core.about import VERSION as __version__
 
 from .sptype import parse_sptypes  # noqa: E402
 from .calibration import CalibrationSet, load_calibration, default_calibrations  # noqa: E402

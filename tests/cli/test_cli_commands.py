@@ -17,7 +17,7 @@ from specpar import __version__
 from specpar.cli import main
 from specpar.tableio import read_table, write_table
 
-SAMPLE = Path(__file__).resolve().parent.parent / "samples" / "survey.csv"
+SAMPLE = Path(__file__).resolve().parents[2] / "samples" / "survey.csv"
 
 # Invented stars; Vmag and Jmag use the catalogue's own names (mapped with --col).
 SMALL_CSV = """\

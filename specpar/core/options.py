@@ -17,7 +17,12 @@ from typing import Any, Callable, Iterable
 
 from .errors import InputError
 
-__all__ = ["Option", "OptionSet", "positive", "non_negative", "at_least", "finite", "in_range"]
+__all__ = ["Option", "OptionSet", "RANGE", "parse_range", "positive", "non_negative", "at_least", "finite",
+           "in_range"]
+
+#: ``kind`` of an option that takes a range: ``LO HI`` or ``LO,HI`` on the command line,
+#: a pair of numbers in Python.
+RANGE = "range"
 
 _UNSET = object()
 
@@ -54,6 +59,22 @@ def in_range(lo, hi) -> Callable[[Any], str | None]:
     return check
 
 
+def parse_range(value, name="range") -> tuple[float, float]:
+    """``(lo, hi)`` from a pair, ``"LO,HI"`` or ``["LO", "HI"]``; :class:`InputError` unless lo < hi."""
+    parts = value
+    if isinstance(value, str):
+        parts = value.split(",")
+    elif len(value) == 1 and isinstance(value[0], str):
+        parts = value[0].split(",")
+    try:
+        lo, hi = (float(v) for v in parts)
+    except (TypeError, ValueError):
+        raise InputError(f"{name} must be two numbers LO HI (or LO,HI), got {value!r}") from None
+    if not (math.isfinite(lo) and math.isfinite(hi) and lo < hi):
+        raise InputError(f"{name} must be finite with LO < HI, got {lo:g}, {hi:g}")
+    return lo, hi
+
+
 @dataclass(frozen=True)
 class Option:
     """One option: its Python name, default, unit, help text and check.
@@ -82,7 +103,7 @@ class Option:
         return self.flag if self.flag is not None else "--" + self.name.replace("_", "-")
 
     def default_text(self) -> str:
-        if not self.show_default or self.kind in (bool, list) or self.default is None:
+        if not self.show_default or self.kind in (bool, list, RANGE) or self.default is None:
             return ""
         unit = f" {self.unit}" if self.unit else ""
         value = f"{self.default:g}" if isinstance(self.default, float) else str(self.default)
@@ -111,6 +132,8 @@ class Option:
         kwargs: dict[str, Any] = {"dest": self.name, "help": text}
         if self.kind is bool:
             kwargs["action"] = "store_true"
+        elif self.kind == RANGE:
+            kwargs.update(nargs="+", metavar=self.metavar or ("LO", "HI"), default=self.default)
         elif self.kind is list:
             kwargs.update(action="append", metavar=self.metavar)
         else:
@@ -187,6 +210,8 @@ class OptionSet:
             value = getattr(ns, opt.name)
             if opt.kind is list and value is None:
                 value = []
+            elif opt.kind == RANGE and value is not None:
+                value = parse_range(value, opt.cli_flag)
             out[opt.name] = value
         return out
 

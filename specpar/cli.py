@@ -147,7 +147,7 @@ def _cmd_calibrations(args):
 
 
 def _cmd_calibrate(args):
-    from .calibrate import calibrate, write_calibrations
+    from .calfit.fit import calibrate, write_calibrations
     from .tableio import read_table, write_table
     table = read_table(args.input, args.in_format)
     fit = calibrate(table, classes=args.lclass, columns=column_map(args.col), rv=args.rv,

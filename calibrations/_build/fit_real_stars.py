@@ -44,8 +44,8 @@ from scipy.stats import norm
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from specpar import brightcat  # noqa: E402
-from specpar.calibrate import calibrate, format_validation, validate  # noqa: E402
+from specpar.calfit import realdata as brightcat  # noqa: E402
+from specpar.calfit.fit import calibrate, format_validation, validate  # noqa: E402
 from specpar.calibration import DEFAULT_FILES  # noqa: E402
 
 OUT = Path(__file__).resolve().parent / "fitted_mv.ecsv"

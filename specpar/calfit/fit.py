@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 from astropy.table import Table
 
-from .sptype import TEMPERATURE_CLASSES, parse_sptypes
+from specpar.sptype import TEMPERATURE_CLASSES, parse_sptypes
 
 __all__ = ["calibrate", "write_calibrations", "CalibrationFit", "fit_luminosity", "star_loglike",
            "validate", "format_validation", "group_labels", "default_scale_height", "UBV_ERRORS"]
@@ -42,7 +42,7 @@ def group_labels(sptypes) -> pd.DataFrame:
 
 
 def _photometric(stars: Table, calibrations=(), **estimate_kw) -> pd.DataFrame:
-    from .estimate import estimate
+    from specpar.estimate import estimate
     inp = Table()
     inp["sptype"] = stars["sptype"]
     for c, e in UBV_ERRORS.items():
@@ -587,7 +587,7 @@ def calibrate(table, *, classes=None, columns=None, rv=3.1, scale_height_pc="aut
     Ratnatunga & Casertano 1991, AJ 101, 1075 (likelihood of the parallax given
     the apparent magnitude; from memory). See :func:`fit_luminosity`.
     """
-    from .calibration import CalibrationSet
+    from specpar.calibration import CalibrationSet
     frame = _input_frame(table, columns)
     n = len(frame)
     parsed = parse_sptypes(frame["sptype"].to_numpy(object))
@@ -704,7 +704,7 @@ def _estimate_variance(trial: Table, rows: pd.DataFrame, rv) -> np.ndarray:
     when the calibration has (almost) no intrinsic M_V scatter."""
     import os
     import tempfile
-    from .estimate import estimate
+    from specpar.estimate import estimate
     if len(trial) < 2:
         return np.zeros(len(rows))
     t = trial.copy()
@@ -727,7 +727,7 @@ def _estimate_variance(trial: Table, rows: pd.DataFrame, rv) -> np.ndarray:
 
 
 def _colour_index(name):
-    from .bands import CALIBRATION_COLOURS
+    from specpar.bands import CALIBRATION_COLOURS
     return CALIBRATION_COLOURS.index(name)
 
 
@@ -773,8 +773,8 @@ def _masked_to_frame(t: Table) -> pd.DataFrame:
 
 
 def _calibration_table(lc, fit, support, near, colours, e_colours, col_src, nlow, rms_c, basecal, info):
-    from .bands import CALIBRATION_COLOURS
-    from .sptype import CLASS_ORDER  # noqa: F401
+    from specpar.bands import CALIBRATION_COLOURS
+    from specpar.sptype import CLASS_ORDER  # noqa: F401
     keep = np.flatnonzero(support)
     rows = slice(keep[0], keep[-1] + 1) if keep.size else slice(0, 0)
     idx = np.arange(len(fit.nodes))[rows]

@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from specpar import estimate
-from specpar.calibrate import calibrate, fit_luminosity, write_calibrations
+from specpar.calfit.fit import calibrate, fit_luminosity, write_calibrations
 from specpar.calibration import load_calibration
 from specpar.cli import main
 

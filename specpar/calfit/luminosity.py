@@ -23,6 +23,10 @@ GLOBAL_PRIOR = np.array([[0.0, 2.0], [np.log(OUTLIER_WIDTH), 0.7]])
 START_SIG, START_SHIFT = 0.5, 0.3
 #: Parallax S/N above which a star's trigonometric M_V helps choose the starting values.
 START_SNR = 5.0
+#: Fewest well-measured stars near a node for their median to start that node.
+START_MIN_STARS = 3
+#: Stars within this many subtypes of a node count as of its type (the ``n_stars`` column).
+SAME_TYPE = 0.5
 #: Bounds: M_V (mag), scatter (mag), logit(frac), offset (mag), extra width (mag).
 MV_BOUNDS, SIG_BOUNDS, LOGIT_FRAC_BOUNDS = (-12.0, 18.0), (0.03, 3.0), (-6.0, 0.0)
 SHIFT_BOUNDS, WIDTH_BOUNDS = (-4.0, 4.0), (0.2, 4.0)
@@ -64,7 +68,7 @@ def _initial_mv(x, m0, plx, e_plx, nodes):
     init = np.full(len(nodes), np.median(mtrig[good]) if good.any() else np.median(m0) - 5)
     for j, xn in enumerate(nodes):
         sel = good & (np.abs(x - xn) <= NEAR_SUBTYPES)
-        if sel.sum() >= 3:
+        if sel.sum() >= START_MIN_STARS:
             init[j] = np.median(mtrig[sel])
     return init
 
@@ -159,7 +163,7 @@ class _Problem:
         cs = cov[J:J + K, J:J + K]
         e_ls = np.sqrt(np.clip(np.einsum("ij,jk,ik->i", Wn, cs, Wn), 0, None))
         med, sig_eff = mixture_summary(mv, sig_nodes, frac, shift, width)
-        n_stars = np.array([int(np.sum(np.abs(x - xn) <= 0.5)) for xn in nodes])
+        n_stars = np.array([int(np.sum(np.abs(x - xn) <= SAME_TYPE)) for xn in nodes])
         # uncertainties of the summaries: those of the core node values (the mixture
         # parameters are shared by all types and much better determined)
         return LuminosityFit(nodes, med, np.sqrt(np.clip(np.diag(cov)[:J], 0, None)), sig_eff,

@@ -7,7 +7,7 @@ from .calibration import CalibrationSet, load_calibration, default_calibrations 
 from .extinction import band_coefficients, LAWS  # noqa: E402
 from .estimate import estimate, EstimateOptions  # noqa: E402
 from .stream import estimate_file  # noqa: E402
-from .calibrate import calibrate, write_calibrations, CalibrationFit  # noqa: E402
+from .calfit import calibrate, write_calibrations, CalibrationFit  # noqa: E402
 
 # Cluster fitting loads scipy.optimize / scipy.ndimage; it is imported on first use
 # so that ``import specpar`` (and the estimate command) start faster.

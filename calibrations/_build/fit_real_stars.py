@@ -3,7 +3,7 @@
 ``calibrations/_build/fitted_mv.ecsv``, which ``make_tables.py`` folds into the
 shipped tables (function ``apply_fitted_mv`` there).
 
-Run from the repository root after ``python -m specpar.brightcat`` (fetches the
+Run from the repository root after ``python -m specpar.calfit.realdata`` (fetches the
 catalogues once):
 
     python calibrations/_build/fit_real_stars.py
@@ -12,14 +12,14 @@ Data: Hipparcos Survey stars with V <= 8 (ESA 1997; parallaxes of the new
 reduction, van Leeuwen 2007) with MK types from the Bright Star Catalogue 5th ed.
 (Hoffleit & Warren 1991) where matched, else the Hipparcos spectral type.
 ONLY stars with EVEN HIP numbers are used here; odd HIP numbers are the held-out
-half of the tests (tests/test_calib_realdata.py).
+half of the tests (tests/calfit/test_calfit_realdata.py).
 
 Steps:
 1. ``specpar.calibrate`` (maximum likelihood of the parallax given V, Ratnatunga &
    Casertano 1991; second-difference smoothing) per class -> M_V(type), scatter.
 2. The fitted curves replace M_V and sig_M_V at the rows of the shipped tables
    inside the fitted type range (intrinsic colours stay as they are).
-3. Volume-complete check on the same even half (``specpar.calibrate.validate``):
+3. Volume-complete check on the same even half (``specpar.calfit.validate``):
    per class x temperature class with >= MIN_GROUP stars, the median distance offset is
    removed and sig_M_V is rescaled so that 68% of the trigonometric distances fall
    in the 16-84% interval; the corrections are set at the groups' median types and
@@ -44,8 +44,8 @@ from scipy.stats import norm
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from specpar import brightcat  # noqa: E402
-from specpar.calibrate import calibrate, format_validation, validate  # noqa: E402
+from specpar.calfit import realdata  # noqa: E402
+from specpar.calfit import calibrate, format_validation, validate  # noqa: E402
 from specpar.calibration import DEFAULT_FILES  # noqa: E402
 
 OUT = Path(__file__).resolve().parent / "fitted_mv.ecsv"
@@ -63,7 +63,7 @@ RED_CLUMP_MKS = -1.61
 
 
 def survey_stars():
-    t = brightcat.load()
+    t = realdata.load()
     return t[np.asarray(t["hip_survey"], dtype=bool)]
 
 
@@ -137,7 +137,7 @@ def corrections(v, values, old):
 
 def main():
     stars = survey_stars()
-    even, odd = brightcat.fit_half(stars), brightcat.test_half(stars)
+    even, odd = realdata.fit_half(stars), realdata.test_half(stars)
     print(f"{len(stars)} Survey stars; fitting on {len(even)} with even HIP numbers")
     res = calibrate(even, sample=SAMPLE)
     fits = res.tables
@@ -149,7 +149,7 @@ def main():
             folder = Path(tmp) / f"round{rnd}"  # new paths: the table loader caches by path
             folder.mkdir()
             paths, values = candidate_tables(fits, folder, corr)
-            v = validate(even, calibrations=paths, v_limit=brightcat.completeness_limits(even))
+            v = validate(even, calibrations=paths, v_limit=realdata.completeness_limits(even))
             print(format_validation(v, f"even half (fitting stars), round {rnd}"))
             if rnd < ROUNDS:
                 corr = corrections(v, values, corr)

@@ -1,7 +1,7 @@
-"""The parallax fitter (specpar.calibrate) on synthetic magnitude-limited samples.
+"""The parallax fitter (specpar.calfit) on synthetic magnitude-limited samples.
 
 Synthetic stars prove the solver only; the science is checked on real stars in
-tests/test_calib_realdata.py.
+tests/calfit/test_calfit_realdata.py.
 """
 import time
 
@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from specpar import estimate
-from specpar.calibrate import calibrate, fit_luminosity, write_calibrations
+from specpar.calfit import calibrate, fit_luminosity, write_calibrations
 from specpar.calibration import load_calibration
 from specpar.cli import main
 

@@ -31,11 +31,10 @@ held-out half for tests (:func:`fit_half`, :func:`test_half`).
 Cache: environment variable ``SPECPAR_REALDATA`` (default
 ``~/.cache/specpar-realdata``). Command line::
 
-    python -m specpar.brightcat            # fetch, check, write the derived table
+    python -m specpar.calfit.realdata            # fetch, check, write the derived table
 """
 from __future__ import annotations
 
-import gzip
 import hashlib
 import os
 import subprocess
@@ -47,7 +46,10 @@ from pathlib import Path
 import numpy as np
 from astropy.table import Table
 
-__all__ = ["survey_limit", "completeness_limits", "cache_dir", "derived_path", "fetch", "load", "fit_half", "test_half", "DerivedDataMissing"]
+from .catalogue import read_bsc5, read_cross_index, read_hip2, read_hip_main
+
+__all__ = ["survey_limit", "completeness_limits", "cache_dir", "derived_path", "fetch", "load", "fit_half", "test_half",
+           "DerivedDataMissing", "sha256", "MAX_SEP_ARCSEC"]
 
 DERIVED_NAME = "hip_bsc5_calibrators_v2.ecsv"
 MAX_SEP_ARCSEC = 60.0  # proper motion over 1991.25-2000 plus BSC rounding stays well below this
@@ -117,69 +119,6 @@ def _extract(archive: Path, members: dict, out: Path) -> None:
         with zipfile.ZipFile(archive) as zf:
             for m, local in members.items():
                 (out / local).write_bytes(zf.read(m))
-
-
-def _num(s: str) -> float:
-    s = s.strip()
-    try:
-        return float(s)
-    except ValueError:
-        return np.nan
-
-
-def read_bsc5(path) -> Table:
-    """Bright Star Catalogue 5th ed. (V/50), fixed byte layout of the CDS ReadMe."""
-    rows = []
-    for raw in Path(path).read_bytes().split(b"\n"):
-        s = raw.decode("latin-1").rstrip("\r")
-        if len(s) < 107 or not s[0:4].strip():
-            continue
-        ra_s, de_s = s[75:83], s[83:90]
-        if not ra_s.strip():  # the few non-stellar entries have no position
-            continue
-        ra = 15.0 * (int(s[75:77]) + int(s[77:79]) / 60.0 + float(s[79:83]) / 3600.0)
-        dec = int(s[84:86]) + int(s[86:88]) / 60.0 + int(s[88:90]) / 3600.0
-        dec = -dec if s[83] == "-" else dec
-        rows.append((int(s[0:4]), int(s[25:31]) if s[25:31].strip() else -1, ra, dec,
-                     _num(s[96:102]), _num(s[102:107]), s[108:109].strip(), _num(s[109:114]),
-                     s[114:115].strip(), _num(s[115:120]), s[120:121].strip(),
-                     s[127:147].strip() if len(s) > 127 else "", s[43:44].strip()))
-    names = ("hr", "hd", "ra_bsc", "dec_bsc", "glat", "V", "u_V", "B-V", "u_B-V", "U-B", "u_U-B",
-             "sptype", "bsc_multiple")
-    return Table(rows=rows, names=names)
-
-
-def read_hip_main(path) -> Table:
-    """Hipparcos main catalogue (I/239 hip_main, '|'-separated fields H0-H77), gzip."""
-    rows = []
-    with gzip.open(path, "rt", encoding="latin-1") as f:
-        for line in f:
-            h = line.rstrip("\n").split("|")
-            if len(h) < 77 or not h[8].strip():
-                continue
-            rows.append((int(h[1]), float(h[8]), float(h[9]), _num(h[5]), _num(h[37]), _num(h[38]),
-                         int(h[71]) if h[71].strip() else -1, h[76].strip(), h[68].strip() == "S",
-                         h[59].strip()))
-    return Table(rows=rows, names=("hip", "ra_hip", "dec_hip", "V_hip", "B-V_hip", "e_B-V_hip", "hd_hip",
-                                   "sptype_hip", "hip_survey", "hip_multflag"))
-
-
-def read_hip2(path) -> Table:
-    """Hipparcos new reduction (I/311 hip2.dat): HIP, Plx, e_Plx (mas) and the solution type."""
-    a = np.loadtxt(path, usecols=(0, 1, 6, 11), dtype=float)
-    return Table({"hip": a[:, 0].astype(int), "sn": a[:, 1].astype(int), "plx": a[:, 2], "e_plx": a[:, 3]})
-
-
-def read_cross_index(path) -> Table:
-    hip, hd, hr = [], [], []
-    for line in Path(path).read_text(encoding="latin-1").splitlines():
-        if line.startswith("#") or not line.strip():
-            continue
-        f = line.split("\t")
-        if len(f) >= 5 and f[4].strip():
-            hip.append(int(f[0])); hr.append(int(f[4]))
-            hd.append(int(f[3]) if f[3].strip() else -1)
-    return Table({"hip": hip, "hd_x": hd, "hr": hr})
 
 
 def _join(bsc: Table, hip: Table, hip2: Table, xid: Table) -> Table:
@@ -285,14 +224,14 @@ def load() -> Table:
     """The derived table (raises :class:`DerivedDataMissing` when not fetched)."""
     p = derived_path()
     if not p.exists():
-        raise DerivedDataMissing(f"{p} not found; run `python -m specpar.brightcat` (needs network once)")
+        raise DerivedDataMissing(f"{p} not found; run `python -m specpar.calfit.realdata` (needs network once)")
     return Table.read(p, format="ascii.ecsv")
 
 
 def completeness_limits(t: Table) -> np.ndarray:
     """Per-star V limit to which the star's sample is complete: the Hipparcos Survey limit
     (:func:`survey_limit`) for Survey stars, -inf (never complete) for the others."""
-    from .sptype import parse_sptypes
+    from specpar.sptype import parse_sptypes
     x = parse_sptypes(np.asarray(t["sptype"], dtype=object))["sptnum"].to_numpy(float)
     lim = survey_limit(np.asarray(t["glat"], dtype=float), x)
     return np.where(np.asarray(t["hip_survey"], dtype=bool), lim, -np.inf)

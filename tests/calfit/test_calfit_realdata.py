@@ -1,5 +1,5 @@
 """Real calibrators: Bright Star Catalogue 5th ed. (Hoffleit & Warren 1991) x Hipparcos
-(ESA 1997) x Hipparcos new reduction (van Leeuwen 2007), fetched by ``python -m specpar.brightcat``.
+(ESA 1997) x Hipparcos new reduction (van Leeuwen 2007), fetched by ``python -m specpar.calfit.realdata``.
 
 Skipped when the derived table is absent, unless SPECPAR_REQUIRE_REALDATA=1 (then a failure).
 """
@@ -8,14 +8,14 @@ import os
 import numpy as np
 import pytest
 
-from specpar import brightcat
+from specpar.calfit import realdata
 
 
 @pytest.fixture(scope="module")
 def stars():
     try:
-        return brightcat.load()
-    except brightcat.DerivedDataMissing as exc:
+        return realdata.load()
+    except realdata.DerivedDataMissing as exc:
         if os.environ.get("SPECPAR_REQUIRE_REALDATA") == "1":
             pytest.fail(f"real data required (SPECPAR_REQUIRE_REALDATA=1) but missing: {exc}")
         pytest.skip(f"real data not fetched: {exc}")
@@ -31,7 +31,7 @@ def test_cross_match_layout(stars):
     # cross-match by the HR/HD/HIP index with a position check (BSC J2000 vs Hipparcos J1991.25)
     inb = np.asarray(stars["hr"]) > 0
     sep = np.asarray(stars["sep_arcsec"], dtype=float)[inb]
-    assert np.all(sep <= brightcat.MAX_SEP_ARCSEC) and np.median(sep) < 2.0
+    assert np.all(sep <= realdata.MAX_SEP_ARCSEC) and np.median(sep) < 2.0
     assert inb.sum() > 8500 and len(np.unique(stars["hip"])) == len(stars) > 40000
     # Hipparcos and BSC V agree (median difference of the two catalogues' V for BSC stars)
     dv = np.asarray(stars["V_hip"] - stars["V_bsc"], dtype=float)[inb]
@@ -39,7 +39,7 @@ def test_cross_match_layout(stars):
 
 
 def test_even_odd_split(stars):
-    fit, held = brightcat.fit_half(stars), brightcat.test_half(stars)
+    fit, held = realdata.fit_half(stars), realdata.test_half(stars)
     assert len(fit) + len(held) == len(stars)
     assert np.all(fit["hip"] % 2 == 0) and np.all(held["hip"] % 2 == 1)
     assert not set(fit["hip"]) & set(held["hip"])
@@ -50,9 +50,9 @@ def test_validation_harness_on_published_dwarf_table(stars, capsys):
 
     The dwarf table is Pecaut & Mamajek 2013 (via meanstars), a published source
     independent of these stars: its B-F groups must pass the criteria of issue 9."""
-    from specpar.calibrate import format_validation, validate
-    held = brightcat.test_half(stars)
-    v = validate(held, v_limit=brightcat.completeness_limits(held))
+    from specpar.calfit import format_validation, validate
+    held = realdata.test_half(stars)
+    v = validate(held, v_limit=realdata.completeness_limits(held))
     with capsys.disabled():
         print("\n" + format_validation(v, "held-out half (odd HIP), shipped tables"))
     for tc in "BAF":
@@ -76,11 +76,11 @@ def test_heldout_validation_of_shipped_tables(stars, capsys):
     (Hoffleit & Warren 1991) or Hipparcos."""
     from pathlib import Path
 
-    from specpar.calibrate import format_validation, validate
+    from specpar.calfit import format_validation, validate
     survey = stars[np.asarray(stars["hip_survey"], dtype=bool)]
-    held = brightcat.test_half(survey)
-    v = validate(held, v_limit=brightcat.completeness_limits(held))
-    base = Path(__file__).resolve().parents[1] / "calibrations" / "_build" / "validation_baseline.txt"
+    held = realdata.test_half(survey)
+    v = validate(held, v_limit=realdata.completeness_limits(held))
+    base = Path(__file__).resolve().parents[2] / "calibrations" / "_build" / "validation_baseline.txt"
     with capsys.disabled():
         print("\n" + base.read_text())
         print(format_validation(v, "held-out half (odd HIP), shipped tables"))

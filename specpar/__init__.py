@@ -6,7 +6,7 @@ from .sptype import parse_sptypes  # noqa: E402
 from .calibration import CalibrationSet, load_calibration, default_calibrations  # noqa: E402
 from .extinction import band_coefficients, LAWS  # noqa: E402
 from .estimate import estimate, EstimateOptions  # noqa: E402
-from .stream import estimate_file  # noqa: E402
+from .batch.stream import estimate_file  # noqa: E402
 from .calibrate import calibrate, write_calibrations, CalibrationFit  # noqa: E402
 
 # Cluster fitting loads scipy.optimize / scipy.ndimage; it is imported on first use

@@ -8,7 +8,8 @@ from . import __version__
 from .bands import BAND_NAMES
 from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
 from .estimate import MAX_MAG_ERROR
-from .tableio import FORMATS, check_output
+from specpar.io.atomic import check_output
+from specpar.io.formats import FORMATS
 
 __all__ = ["main"]
 
@@ -41,7 +42,7 @@ class _Parser(argparse.ArgumentParser):
 
 def column_map(pairs):
     """``--col`` pairs to a mapping (see :func:`specpar.columns.column_map`)."""
-    from .columns import column_map as _column_map
+    from specpar.io.columns import column_map as _column_map
     return _column_map(pairs)
 
 
@@ -105,8 +106,9 @@ def _add_estimate_options(p):
 
 
 def _cmd_estimate(args):
-    from .columns import describe_mapping
-    from .stream import estimate_file, is_dataset
+    from specpar.io.columns import describe_mapping
+    from specpar.batch.stream import estimate_file
+    from specpar.batch.parquet import is_dataset
     inputs = [args.input, *(args.calibration or ())]
     # everything about the output is checked before reading and computing
     # (a dataset folder or a Dask run publishes a folder or file of its own, checked there)
@@ -148,7 +150,8 @@ def _cmd_calibrations(args):
 
 def _cmd_calibrate(args):
     from .calibrate import calibrate, write_calibrations
-    from .tableio import read_table, write_table
+    from specpar.io.read import read_table
+    from specpar.io.write import write_table
     table = read_table(args.input, args.in_format)
     fit = calibrate(table, classes=args.lclass, columns=column_map(args.col), rv=args.rv,
                     scale_height_pc=None if args.uniform_density else (
@@ -168,7 +171,7 @@ def _cmd_calibrate(args):
 
 
 def _cmd_bench(args):
-    from .bench import run_benchmark, run_dataset_benchmark
+    from specpar.batch.bench import run_benchmark, run_dataset_benchmark
     if args.dataset:
         run_dataset_benchmark(n_rows=args.rows, workdir=args.workdir)
     else:
@@ -252,7 +255,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(args=None) -> int:
     """Entry point; returns the exit status."""
-    from .tableio import Terminated
+    from specpar.io.atomic import Terminated
     parser = build_parser()
     ns = parser.parse_args(args)
     if not ns.command:

@@ -15,7 +15,8 @@ from astropy.table import Table
 
 from specpar import __version__
 from specpar.cli import main
-from specpar.tableio import read_table, write_table
+from specpar.io.read import read_table
+from specpar.io.write import write_table
 
 SAMPLE = Path(__file__).resolve().parent.parent / "samples" / "survey.csv"
 

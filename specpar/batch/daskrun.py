@@ -34,6 +34,12 @@ __all__ = ["estimate_dask", "estimate_file_dask", "connect"]
 
 #: How many times a failed piece is tried again before the run stops.
 RETRIES = 1
+#: How long to wait for a running scheduler to answer (our choice, common practice:
+#: long enough for a scheduler on another machine of the network).
+SCHEDULER_TIMEOUT = "20s"
+#: Pieces of one file submitted per worker at a time: one solving, one waiting, so
+#: workers never idle while memory stays bounded (common practice).
+PIECES_PER_WORKER = 2
 
 
 def _require_dask():
@@ -57,7 +63,7 @@ def connect(workers=None, scheduler=None):
         if workers is not None:
             raise InputError("give either a scheduler address or a number of local workers, not both")
         try:
-            return Client(scheduler, timeout="20s"), None
+            return Client(scheduler, timeout=SCHEDULER_TIMEOUT), None
         except Exception as exc:
             raise InputError(f"cannot reach the Dask scheduler at {scheduler!r}: {exc}; start one with "
                              f"'dask scheduler' and workers with 'dask worker {scheduler}'") from None
@@ -155,49 +161,13 @@ def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk
     input; a single file gives a single file, joined from the pieces in order.
     """
     src, dst = Path(src), Path(dst)
-    if not is_dataset(src) and guess_format(src, in_format) != "parquet":
-        raise InputError(f"the dask engine reads Parquet files and datasets, not {src.name}; "
-                         f"convert it to Parquet or use the default engine (--engine local)")
-    if not is_dataset(src) and not src.is_file():
-        raise InputError(f"input file {src} does not exist")
-    if not is_dataset(src) and guess_format(dst, out_format) != "parquet":
-        raise InputError(f"the dask engine writes Parquet; give the output a .parquet name, not {dst.name}")
-    if is_dataset(src) and dst.suffix and guess_format(dst, out_format) != "parquet":
-        raise InputError(f"a dataset input {src} writes a dataset folder; give a folder name, not {dst.name}")
+    _check_paths(src, dst, in_format, out_format)
     pieces = _pieces(src, chunk_rows)
     client, cluster = connect(workers, scheduler)
     try:
-        def build(tmp):
-            from distributed import as_completed
-            futures = {}
-            for name, path, groups, rel in pieces:
-                fut = client.submit(_solve_piece, path, groups, str(tmp / rel), opts, chunk_rows,
-                                    retries=RETRIES, pure=False, key=f"specpar-{abs(hash((str(tmp), name)))}")
-                futures[fut] = name
-            bar = None
-            if progress:
-                from tqdm.auto import tqdm
-                bar = tqdm(total=_rows(pieces), unit="row", unit_scale=True, desc="specpar estimate (dask)")
-            total = {}
-            try:
-                for fut in as_completed(list(futures)):
-                    try:
-                        total = combine_counts(total, fut.result())
-                    except Exception as exc:
-                        for other in futures:
-                            other.cancel()
-                        msg = exc.args[0] if exc.args else exc
-                        raise InputError(f"partition {futures[fut]} failed {RETRIES + 1} times; "
-                                         f"no output written: {msg}") from None
-                    if bar is not None:
-                        bar.update(fut.result()["rows"])
-            finally:
-                if bar is not None:
-                    bar.close()
-            return total
-
         if is_dataset(src):
-            return publish_folder(build, dst, overwrite=overwrite, inputs=[src])
+            return publish_folder(lambda tmp: _solve_into_folder(client, pieces, tmp, opts, chunk_rows, progress),
+                                  dst, overwrite=overwrite, inputs=[src])
         result = {}
 
         def writer(tmp_file):
@@ -208,6 +178,59 @@ def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk
         client.close()
         if cluster is not None:
             cluster.close()
+
+
+def _check_paths(src: Path, dst: Path, in_format, out_format) -> None:
+    """Parquet in, Parquet out (a folder for a dataset), else one clear error."""
+    if not is_dataset(src) and guess_format(src, in_format) != "parquet":
+        raise InputError(f"the dask engine reads Parquet files and datasets, not {src.name}; "
+                         f"convert it to Parquet or use the default engine (--engine local)")
+    if not is_dataset(src) and not src.is_file():
+        raise InputError(f"input file {src} does not exist")
+    if not is_dataset(src) and guess_format(dst, out_format) != "parquet":
+        raise InputError(f"the dask engine writes Parquet; give the output a .parquet name, not {dst.name}")
+    if is_dataset(src) and dst.suffix and guess_format(dst, out_format) != "parquet":
+        raise InputError(f"a dataset input {src} writes a dataset folder; give a folder name, not {dst.name}")
+
+
+def _dask_bar(pieces, progress):
+    """A progress bar over the rows of all pieces (None without ``progress``)."""
+    if not progress:
+        return None
+    from tqdm.auto import tqdm
+    return tqdm(total=_rows(pieces), unit="row", unit_scale=True, desc="specpar estimate (dask)")
+
+
+def _failed(name, exc) -> InputError:
+    """The error that stops the run when a piece failed on every try."""
+    msg = exc.args[0] if exc.args else exc
+    return InputError(f"partition {name} failed {RETRIES + 1} times; no output written: {msg}")
+
+
+def _solve_into_folder(client, pieces, tmp, opts, chunk_rows, progress) -> dict:
+    """Every worker writes its pieces under the folder ``tmp``; the counts."""
+    from distributed import as_completed
+    futures = {}
+    for name, path, groups, rel in pieces:
+        fut = client.submit(_solve_piece, path, groups, str(tmp / rel), opts, chunk_rows,
+                            retries=RETRIES, pure=False, key=f"specpar-{abs(hash((str(tmp), name)))}")
+        futures[fut] = name
+    bar = _dask_bar(pieces, progress)
+    total = {}
+    try:
+        for fut in as_completed(list(futures)):
+            try:
+                total = combine_counts(total, fut.result())
+            except Exception as exc:
+                for other in futures:
+                    other.cancel()
+                raise _failed(futures[fut], exc) from None
+            if bar is not None:
+                bar.update(fut.result()["rows"])
+    finally:
+        if bar is not None:
+            bar.close()
+    return total
 
 
 class _TableSink:
@@ -242,12 +265,9 @@ def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress):
     file in order, as they come back; at most a few pieces are held at once."""
     import json
     n_workers = max(1, len(client.scheduler_info().get("workers", {})))
-    window = 2 * n_workers
+    window = PIECES_PER_WORKER * n_workers
     futures, names = [], []
-    bar = None
-    if progress:
-        from tqdm.auto import tqdm
-        bar = tqdm(total=_rows(pieces), unit="row", unit_scale=True, desc="specpar estimate (dask)")
+    bar = _dask_bar(pieces, progress)
 
     def submit(i):
         name, path, groups, _ = pieces[i]
@@ -265,8 +285,7 @@ def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress):
             except Exception as exc:
                 for f in futures[i:]:
                     f.cancel()
-                msg = exc.args[0] if exc.args else exc
-                raise InputError(f"partition {names[i]} failed {RETRIES + 1} times; no output written: {msg}") from None
+                raise _failed(names[i], exc) from None
             futures[i] = None  # release the piece
             if i + window < len(pieces):
                 submit(i + window)

@@ -20,6 +20,10 @@ from ..core.errors import InputError
 from ..io.write import parquet_meta
 from .blocks import solve_blocks
 
+#: Hex digits of the random tag in a temporary folder's name: 48 random bits, so
+#: concurrent runs never pick one name (common practice).
+_TAG_HEX_DIGITS = 12
+
 __all__ = ["is_dataset", "dataset_files", "parquet_blocks", "parquet_writer", "output_schema", "ParquetSink",
            "run_parquet_file", "publish_folder"]
 
@@ -142,12 +146,12 @@ def publish_folder(build, dst, *, overwrite=False, inputs=()):
         raise InputError(f"output {dst} exists; choose another name or allow overwriting (--overwrite)")
     if not dst.parent.exists():
         raise InputError(f"output folder {dst.parent} does not exist")
-    tmp = dst.parent / f".{dst.name}.tmp-{uuid.uuid4().hex[:12]}"
+    tmp = dst.parent / f".{dst.name}.tmp-{uuid.uuid4().hex[:_TAG_HEX_DIGITS]}"
     tmp.mkdir()
     try:
         result = build(tmp)
         if dst.exists():
-            old = dst.parent / f".{dst.name}.old-{uuid.uuid4().hex[:12]}"
+            old = dst.parent / f".{dst.name}.old-{uuid.uuid4().hex[:_TAG_HEX_DIGITS]}"
             os.replace(dst, old)
             os.replace(tmp, dst)
             shutil.rmtree(old) if old.is_dir() else old.unlink()

@@ -146,6 +146,19 @@ def _estimate_table_file(src: Path, dst: Path, in_format, out_format, opts, chun
     return _estimate_parquet(src, dst, opts, chunk_rows, threads, overwrite, progress)
 
 
+def _estimate_local(src, dst, in_format, out_format, opts, chunk_rows, threads, overwrite, progress, hdu,
+                    max_field_length) -> dict:
+    """:func:`estimate_file` in this process: a dataset folder or a table file."""
+    if is_stdout(dst):  # standard output: the whole-table writer
+        chunk_rows = 0
+    src, dst = Path(src), Path(dst)
+    if is_dataset(src):
+        return _estimate_dataset(src, dst, out_format, opts, chunk_rows or DEFAULT_CHUNK_ROWS, threads, overwrite,
+                                 progress)
+    return _estimate_table_file(src, dst, in_format, out_format, opts, chunk_rows, threads, overwrite, progress,
+                                hdu, max_field_length)
+
+
 def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAULT_CHUNK_ROWS, threads=None,
                   engine="local", workers=None, scheduler=None, overwrite=False, progress=False, hdu=None,
                   max_field_length=None, **options):
@@ -205,11 +218,5 @@ def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAU
                                   scheduler=scheduler, overwrite=overwrite, progress=progress, opts=opts)
     if workers is not None or scheduler is not None:
         raise InputError("workers and scheduler apply to the dask engine only (engine='dask', --engine dask)")
-    if is_stdout(dst):  # standard output: the whole-table writer
-        chunk_rows = 0
-    src, dst = Path(src), Path(dst)
-    if is_dataset(src):
-        return _estimate_dataset(src, dst, out_format, opts, chunk_rows or DEFAULT_CHUNK_ROWS, threads, overwrite,
-                                 progress)
-    return _estimate_table_file(src, dst, in_format, out_format, opts, chunk_rows, threads, overwrite, progress,
-                                hdu, max_field_length)
+    return _estimate_local(src, dst, in_format, out_format, opts, chunk_rows, threads, overwrite, progress, hdu,
+                           max_field_length)

@@ -15,6 +15,7 @@ POSIX ``rename(2)`` (atomic replacement within one file system) and ``link(2)``
 """
 from __future__ import annotations
 
+import itertools
 import os
 import re
 import signal
@@ -32,6 +33,11 @@ __all__ = ["check_output", "check_path", "temp_path_for", "publish", "atomic_wri
 TEMP_TAG = "specpar"
 
 
+#: Permission bits of a new output before the umask, as ``open(2)`` creates files
+#: (POSIX; common practice).
+NEW_FILE_BITS = 0o666
+#: A temporary file is private (owner read/write) until it is published (common practice).
+TEMP_FILE_BITS = 0o600
 _TEMP_RE = re.compile(r"^\.(?P<name>.+)\." + TEMP_TAG + r"-(?P<pid>\d+)-\d+\.tmp$")
 
 
@@ -136,7 +142,7 @@ def check_path(path, inputs=(), overwrite=False, what="output") -> None:
     _check_replaceable(path, st, overwrite, what)
 
 
-_counter = iter(range(1 << 62))
+_counter = itertools.count()
 
 
 def temp_path_for(path) -> Path:
@@ -183,7 +189,7 @@ def sweep_stale_temps(path) -> list:
 def _new_file_mode() -> int:
     umask = os.umask(0)
     os.umask(umask)
-    return 0o666 & ~umask
+    return NEW_FILE_BITS & ~umask
 
 
 def publish(tmp, path, *, overwrite=False, what="output") -> None:
@@ -256,7 +262,7 @@ def atomic_write(path, writer, *, inputs=(), overwrite=False, what="output") -> 
     if main:
         old = signal.signal(signal.SIGTERM, _raise_terminated)
     try:
-        fd = os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o600)
+        fd = os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, TEMP_FILE_BITS)
         os.close(fd)
         writer(str(tmp))
         publish(tmp, path, overwrite=overwrite, what=what)

@@ -141,7 +141,8 @@ def _unwritable_kind(series) -> str | None:
 
 
 #: Largest fixed-width text column written to FITS (bytes = rows x longest cell);
-#: beyond it the write would need that much memory and disk for mostly padding.
+#: beyond it the write would need that much memory and disk for mostly padding
+#: (our limit, a round 512 MiB; common practice for refusing a write up front).
 FITS_TEXT_BYTES_MAX = 512 * 1024 ** 2
 
 

@@ -164,6 +164,59 @@ def _take_one(candidates, target, what, mapping, used) -> None:
         used.add(candidates[0])
 
 
+def _check_explicit(columns: dict, names: list, present: set) -> None:
+    """Errors in an explicit mapping: unknown targets, names not in the input, a column mapped twice."""
+    unknown = [t for t in columns if not _is_target(str(t))]
+    if unknown:
+        raise InputError(f"unknown target column(s) {', '.join(map(repr, unknown))} in the column mapping; "
+                         f"ours are {', '.join(BAND_NAMES)}, e_<band>, colours such as B-V and e_B-V, "
+                         f"{', '.join(OTHER_TARGETS)}")
+    missing = [s for s in columns.values() if s not in present]
+    if missing:
+        raise InputError(f"column(s) {', '.join(map(repr, missing))} named in the column mapping "
+                         f"are not in the input; it has {', '.join(names)}")
+    by_source = {}
+    for t, s in columns.items():
+        by_source.setdefault(s, []).append(t)
+    twice = {s: ts for s, ts in by_source.items() if len(ts) > 1}
+    if twice:
+        s, ts = next(iter(twice.items()))
+        raise InputError(f"column {s!r} is mapped to {' and '.join(ts)}; map each column once")
+
+
+def _recognise_values(names: list, present: set, columns: dict, mapping: dict) -> None:
+    """Add to ``mapping`` the value columns (not errors) found by their catalogue spellings."""
+    used = set(mapping.values()) | set(columns.values())
+    lower_names = {n.lower() for n in names}
+    for target, spellings in _alias_table(lower_names).items():
+        if target.startswith("e_") or target in mapping or target in present:
+            continue
+        hits = [n for n in names if n not in used and not _is_target(n)
+                and any(_matches(sp, n) for sp in spellings)]
+        _take_one(hits, target, f"several columns could be {target}", mapping, used)
+
+
+def _add_error_columns(names: list, present: set, columns: dict, mapping: dict, recognise: bool) -> None:
+    """A band, colour or parallax brings its error column along, spelled after the
+    column actually used (Vmag -> e_Vmag, Vmag_err ...; parallax -> parallax_error)."""
+    used = set(mapping.values()) | set(columns.values())
+    lower = {}
+    for n in names:
+        lower.setdefault(n.lower(), []).append(n)
+    for t in [t for t in list(mapping) + [n for n in names if _is_target(n)] if not t.startswith("e_")]:
+        if t in ("id", "sptype", "pmode", "period_d"):
+            continue
+        et = f"e_{t}"
+        if et in mapping or et in present or et in columns:
+            continue
+        src = mapping.get(t, t)
+        if src == t and not recognise:
+            continue
+        found = [n for e in _error_spellings(src) for n in lower.get(e, []) if n not in used]
+        _take_one(list(dict.fromkeys(found)), et, f"several columns could be the error of {src} ({et})",
+                  mapping, used)
+
+
 def resolve_columns(frame: pd.DataFrame, columns=None, *, recognise=True):
     """Rename the input's columns to ours; returns ``(frame, mapping)``.
 
@@ -197,50 +250,11 @@ def resolve_columns(frame: pd.DataFrame, columns=None, *, recognise=True):
     columns = dict(columns or {})
     names = [str(c) for c in frame.columns]
     present = set(names)
-    unknown = [t for t in columns if not _is_target(str(t))]
-    if unknown:
-        raise InputError(f"unknown target column(s) {', '.join(map(repr, unknown))} in the column mapping; "
-                         f"ours are {', '.join(BAND_NAMES)}, e_<band>, colours such as B-V and e_B-V, "
-                         f"{', '.join(OTHER_TARGETS)}")
-    missing = [s for s in columns.values() if s not in present]
-    if missing:
-        raise InputError(f"column(s) {', '.join(map(repr, missing))} named in the column mapping "
-                         f"are not in the input; it has {', '.join(names)}")
-    by_source = {}
-    for t, s in columns.items():
-        by_source.setdefault(s, []).append(t)
-    twice = {s: ts for s, ts in by_source.items() if len(ts) > 1}
-    if twice:
-        s, ts = next(iter(twice.items()))
-        raise InputError(f"column {s!r} is mapped to {' and '.join(ts)}; map each column once")
+    _check_explicit(columns, names, present)
     mapping = {t: s for t, s in columns.items() if t != s}
     if recognise:  # values first; each error column is then found from its value's spelling
-        used = set(mapping.values()) | set(columns.values())
-        lower_names = {n.lower() for n in names}
-        for target, spellings in _alias_table(lower_names).items():
-            if target.startswith("e_") or target in mapping or target in present:
-                continue
-            hits = [n for n in names if n not in used and not _is_target(n)
-                    and any(_matches(sp, n) for sp in spellings)]
-            _take_one(hits, target, f"several columns could be {target}", mapping, used)
-    # a band, colour or parallax brings its error column along, spelled after the
-    # column actually used (Vmag -> e_Vmag, Vmag_err ...; parallax -> parallax_error)
-    used = set(mapping.values()) | set(columns.values())
-    lower = {}
-    for n in names:
-        lower.setdefault(n.lower(), []).append(n)
-    for t in [t for t in list(mapping) + [n for n in names if _is_target(n)] if not t.startswith("e_")]:
-        if t in ("id", "sptype", "pmode", "period_d"):
-            continue
-        et = f"e_{t}"
-        if et in mapping or et in present or et in columns:
-            continue
-        src = mapping.get(t, t)
-        if src == t and not recognise:
-            continue
-        found = [n for e in _error_spellings(src) for n in lower.get(e, []) if n not in used]
-        _take_one(list(dict.fromkeys(found)), et, f"several columns could be the error of {src} ({et})",
-                  mapping, used)
+        _recognise_values(names, present, columns, mapping)
+    _add_error_columns(names, present, columns, mapping, recognise)
     # result names must be unique: a target that exists and is not itself mapped away
     sources = set(mapping.values())
     clash = [t for t in mapping if t in present and t not in sources]

@@ -32,7 +32,7 @@ __all__ = ["write_table", "write_delimited", "parquet_meta"]
 
 #: Text longer than this in an ECSV column is written as JSON-encoded objects
 #: rather than fixed-width strings (memory grows with the longest cell otherwise).
-_ECSV_FIXED_WIDTH_MAX = 256
+_ECSV_FIXED_WIDTH_MAX = 256  # (our choice, common practice: a round power of two)
 
 
 def _units(table) -> dict:
@@ -100,6 +100,7 @@ def _astropy_parquet_header(frame, meta) -> dict:
 
 def _for_astropy(source, fmt, meta, units) -> Table:
     cols = {}
+    first = next(iter(source), None)
     for name, vals in source.items():
         if vals.dtype.kind == "O" and vals.ndim == 1:
             miss = np.array([v is None for v in vals], bool)
@@ -109,9 +110,12 @@ def _for_astropy(source, fmt, meta, units) -> Table:
             elif fmt == "ecsv":
                 longest = max((len(v) for v in vals if v is not None), default=0)
                 # the plain form loses line breaks (any that str.splitlines knows) and
-                # blanks at either end
+                # blanks at either end, and a row whose first cell starts with '#' (a
+                # comment line to ECSV readers: APE 6; astropy leaves such a cell unquoted)
+                lead = name == first
                 plain = longest <= _ECSV_FIXED_WIDTH_MAX and not any(
-                    v is not None and (v != v.strip() or len(v.splitlines()) > 1) for v in pd.unique(vals))
+                    v is not None and (v != v.strip() or len(v.splitlines()) > 1 or (lead and v.startswith("#")))
+                    for v in pd.unique(vals))
                 if plain:
                     data = np.array(["" if v is None else v for v in vals], dtype=str)
                     cols[name] = MaskedColumn(data, mask=miss) if miss.any() else Column(data)

@@ -2,11 +2,11 @@
 (spectroscopic parallax), with extinction, error propagation and flags."""
 from .core.about import VERSION as __version__
 
-from .sptype import parse_sptypes  # noqa: E402
-from .calibration import CalibrationSet, load_calibration, default_calibrations  # noqa: E402
-from .extinction import band_coefficients, LAWS  # noqa: E402
+from specpar.core.sptype import parse_sptypes # noqa: E402
+from specpar.calib.tables import CalibrationSet, load_calibration, default_calibrations # noqa: E402
+from specpar.calib.extinction import band_coefficients, LAWS # noqa: E402
 from .estimate import estimate, EstimateOptions  # noqa: E402
-from .stream import estimate_file  # noqa: E402
+from .batch.stream import estimate_file  # noqa: E402
 from .calfit import calibrate, write_calibrations, CalibrationFit  # noqa: E402
 
 # Cluster fitting loads scipy.optimize / scipy.ndimage; it is imported on first use

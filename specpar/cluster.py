@@ -2082,13 +2082,14 @@ def register_cli(sub):
 
 def _cmd_cluster(args):
     from .cli import column_map
-    from .tableio import read_table, write_table
+    from specpar.io.read import read_table
+    from specpar.io.write import write_table
     for f in (args.plot, args.twocolour):
         if f and not str(f).lower().endswith((".png", ".pdf")):
             raise ValueError(f"plot file {f} must end in .png or .pdf")
     locus_file = [args.locus] if args.locus and os.path.isfile(str(args.locus)) else []
     if args.output:  # checked before any computing (never over the table or the locus file)
-        from .tableio import check_output
+        from specpar.io.atomic import check_output
         check_output(args.output, args.out_format, inputs=[args.input, *locus_file], overwrite=args.overwrite)
     table = read_table(args.input, args.in_format, hdu=args.hdu)
     import warnings

@@ -29,7 +29,7 @@ def _figure():
 
 
 def _save(fig, path, inputs=(), overwrite=False):
-    from .tableio import atomic_write
+    from specpar.io.atomic import atomic_write
     import matplotlib.pyplot as plt
     ext = Path(path).suffix.lower()
     try:

@@ -265,7 +265,7 @@ def prepare_observables(frame_in: pd.DataFrame, opts: EstimateOptions) -> Prepar
     Used by the worked solutions and the cluster fit so that every part of
     specpar sees the same observables, rejections and default errors.
     """
-    from .columns import resolve_columns
+    from specpar.io.columns import resolve_columns
     frame, mapping = resolve_columns(frame_in, opts.columns)
     N = len(frame)
     if "sptype" not in frame.columns:

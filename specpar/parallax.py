@@ -49,7 +49,7 @@ import pandas as pd
 from scipy.special import log_ndtr, logsumexp, ndtr, ndtri, ndtri_exp
 
 from .flags import Flag
-from .tableio import atomic_write
+from specpar.io.atomic import atomic_write
 
 __all__ = ["COLUMNS", "DIAG_CODES", "crosscheck", "distance_posterior", "DistanceSummary",
            "tension_z", "metadata", "plot_parallax", "register_cli"]
@@ -692,7 +692,7 @@ def plot_parallax(table, path, *, threshold=None, overwrite=False, inputs=()):
 
 
 def _cmd_plot(args):
-    from .tableio import read_table
+    from specpar.io.read import read_table
     if args.tension is not None and not (np.isfinite(args.tension) and args.tension > 0):
         raise ValueError(f"--tension must be a finite number > 0 (in sigma, e.g. 3), got {args.tension}")
     table = read_table(args.table, args.in_format, hdu=args.hdu)
@@ -702,7 +702,7 @@ def _cmd_plot(args):
 
 def register_cli(sub) -> None:
     """Add ``specpar plot-parallax``."""
-    from .tableio import FORMATS
+    from specpar.io.formats import FORMATS
     p = sub.add_parser("plot-parallax", help="figure: photometric vs trigonometric parallax and z histogram",
                        description="Draw photometric against trigonometric parallax (1:1 line, stars in "
                                    "tension marked) and a histogram of z, from a table written by "

@@ -573,7 +573,7 @@ def write_problem_set(ps: ProblemSet, out_dir, *, overwrite: bool = False, decim
     Nothing is written if any target exists and ``overwrite`` is false.
     Returns the paths written, by role.
     """
-    from .tableio import write_table
+    from specpar.io.write import write_table
     out_dir = Path(out_dir)
     if out_dir.exists() and not out_dir.is_dir():
         raise ValueError(f"{out_dir} exists and is not a folder; choose another --out-dir")

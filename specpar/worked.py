@@ -50,7 +50,7 @@ from .calibration import CalibrationSet, default_calibrations
 from .extinction import rv_limits
 from .estimate import EstimateOptions, coefficients_at, prepare_observables, to_frame, estimate
 from .flags import Flag, SENTENCES
-from .tableio import atomic_write
+from specpar.io.atomic import atomic_write
 from .sptype import TEMPERATURE_CLASSES
 
 __all__ = ["Step", "FitRow", "WorkedStar", "WorkedSolution", "SummaryTable", "worked_solutions",
@@ -1149,7 +1149,7 @@ def _format_of(path, fmt):
 def write_worked(ws: WorkedSolution, path, fmt=None, *, inputs=(), overwrite=False, title="Worked solutions",
                  decimals=None, preface=(), summaries=()) -> None:
     """Write worked solutions as Markdown, HTML or a CSV answer key (atomically)."""
-    from .tableio import write_table
+    from specpar.io.write import write_table
     fmt = _format_of(path, fmt)
     if fmt == "csv":
         write_table(answer_key(ws, decimals=decimals), path, "csv", inputs=inputs, overwrite=overwrite)
@@ -1163,7 +1163,7 @@ def write_worked(ws: WorkedSolution, path, fmt=None, *, inputs=(), overwrite=Fal
 
 def _cmd_worked(args) -> int:
     from .cli import column_map
-    from .tableio import read_table
+    from specpar.io.read import read_table
     table = read_table(args.input, args.in_format, hdu=args.hdu)
     ws = worked_solutions(table, decimals=args.decimals, law=args.law, rv=args.rv, sigma_rv=args.sigma_rv,
                           fit_rv=args.fit_rv, default_error=args.default_error,
@@ -1178,7 +1178,7 @@ def _cmd_worked(args) -> int:
 def register_cli(sub) -> None:
     """Add ``specpar worked``."""
     from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
-    from .tableio import FORMATS as TABLE_FORMATS
+    from specpar.io.formats import FORMATS as TABLE_FORMATS
     p = sub.add_parser("worked", help="worked solutions / answer key for every star of a table",
                        description="Write every step of each star's distance (type read, calibration values "
                                    "and their sources, colour excess, extinction, distance modulus, distance in "

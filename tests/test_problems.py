@@ -12,7 +12,7 @@ from specpar.calibration import default_calibrations
 from specpar.cli import main
 from specpar.extinction import band_coefficients
 from specpar.problems import make_problem_set, problem_files, write_problem_set
-from specpar.tableio import read_table
+from specpar.io.read import read_table
 
 
 # the tests below pick small seeds on purpose (readable, reproducible); the warning has its own test

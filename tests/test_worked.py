@@ -15,7 +15,7 @@ from astropy.table import Table
 
 from specpar import estimate
 from specpar.cli import main
-from specpar.tableio import read_table
+from specpar.io.read import read_table
 from specpar.worked import answer_key, render_html, render_markdown, worked_solutions
 
 SAMPLE = Path(__file__).resolve().parent.parent / "samples" / "survey.csv"

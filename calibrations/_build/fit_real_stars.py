@@ -46,7 +46,7 @@ sys.path.insert(0, str(ROOT))
 
 from specpar.calfit import realdata  # noqa: E402
 from specpar.calfit import calibrate, format_validation, validate  # noqa: E402
-from specpar.calibration import DEFAULT_FILES  # noqa: E402
+from specpar.calib.tables import DEFAULT_FILES # noqa: E402
 
 OUT = Path(__file__).resolve().parent / "fitted_mv.ecsv"
 SAMPLE = ("Hipparcos Survey stars V <= 8 with new-reduction parallaxes; BSC5 MK types where "

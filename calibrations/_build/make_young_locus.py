@@ -52,9 +52,9 @@ from astropy.table import Table
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from specpar.bands import band_index  # noqa: E402
-from specpar.calibration import load_calibration  # noqa: E402
-from specpar.extinction import band_coefficients  # noqa: E402
+from specpar.core.bands import band_index # noqa: E402
+from specpar.calib.tables import load_calibration # noqa: E402
+from specpar.calib.extinction import band_coefficients # noqa: E402
 
 EBV_PLEIADES = 0.045  # Gaia Collaboration 2018 (Babusiaux), Table 2, from memory
 PLX_ZP = -0.029  # Gaia DR2 parallax zero point, Lindegren et al. 2018 (mas)

@@ -74,7 +74,7 @@ def _estimate_variance(trial: Table, rows: pd.DataFrame, rv) -> np.ndarray:
 def _intrinsic_colours(s, sel, nodes, basecal, min_per_node) -> IntrinsicColours:
     """B-V and U-B at the nodes from the nearby (unreddened) stars of ``sel``; the base
     table where they are too few."""
-    from specpar.bands import CALIBRATION_COLOURS
+    from specpar.core.bands import CALIBRATION_COLOURS
     x = s.sptnum
     low = sel & (s.plx > LOW_RED_PLX) & (s.plx > COLOUR_SNR * s.e_plx)
     out = IntrinsicColours({}, {}, {}, {}, count_near(x[low], nodes))
@@ -189,7 +189,7 @@ def calibrate(table, **options) -> CalibrationFit:
     Ratnatunga & Casertano 1991, AJ 101, 1075 (likelihood of the parallax given
     the apparent magnitude; from memory). See :func:`~specpar.calfit.luminosity.fit_luminosity`.
     """
-    from specpar.calibration import CalibrationSet
+    from specpar.calib.tables import CalibrationSet
     opts = CALIBRATE_OPTIONS.resolve(options, what="calibrate options")
     s, want = select_calibrators(input_frame(table, opts["columns"]), opts["classes"], opts["v_limit"])
     base = CalibrationSet(tuple(opts["base_calibrations"] or ()))

@@ -51,7 +51,7 @@ CLI_OPTIONS = OptionSet(COLUMNS, CLASSES, RV, SCALE_HEIGHT, UNIFORM_DENSITY, V_L
 def api_options(cli_values: dict) -> dict:
     """Keyword arguments of :func:`specpar.calibrate` from the values of :data:`CLI_OPTIONS`
     (``--col`` pairs become the ``columns`` mapping)."""
-    from specpar.columns import column_map
+    from specpar.io.columns import column_map
     out = {k: v for k, v in cli_values.items() if k in CALIBRATE_OPTIONS.names()}
     out["columns"] = column_map(cli_values.get("columns"))
     uniform, height = cli_values.get("uniform_density"), cli_values.get("scale_height")

@@ -231,7 +231,7 @@ def load() -> Table:
 def completeness_limits(t: Table) -> np.ndarray:
     """Per-star V limit to which the star's sample is complete: the Hipparcos Survey limit
     (:func:`survey_limit`) for Survey stars, -inf (never complete) for the others."""
-    from specpar.sptype import parse_sptypes
+    from specpar.core.sptype import parse_sptypes
     x = parse_sptypes(np.asarray(t["sptype"], dtype=object))["sptnum"].to_numpy(float)
     lim = survey_limit(np.asarray(t["glat"], dtype=float), x)
     return np.where(np.asarray(t["hip_survey"], dtype=bool), lim, -np.inf)

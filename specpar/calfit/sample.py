@@ -11,7 +11,7 @@ import pandas as pd
 from astropy.table import Table
 
 from specpar.core.errors import InputError
-from specpar.sptype import TEMPERATURE_CLASSES, parse_sptypes
+from specpar.core.sptype import TEMPERATURE_CLASSES, parse_sptypes
 
 __all__ = ["UBV_ERRORS", "FIT_CLASSES", "LOW_RED_PLX", "NEAR_SUBTYPES", "group_labels",
            "default_scale_height", "input_frame", "Sample", "select_calibrators", "count_near"]

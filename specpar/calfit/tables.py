@@ -11,7 +11,7 @@ import numpy as np
 from astropy.table import Table
 
 from specpar.core.errors import InputError
-from specpar.sptype import TEMPERATURE_CLASSES
+from specpar.core.sptype import TEMPERATURE_CLASSES
 
 __all__ = ["IntrinsicColours", "calibration_table", "write_calibrations", "type_name", "FITTED_COLOURS"]
 
@@ -58,7 +58,7 @@ def _round(values):
 
 
 def _value_columns(t, fit, idx, colours, basecal):
-    from specpar.bands import CALIBRATION_COLOURS
+    from specpar.core.bands import CALIBRATION_COLOURS
     t["sptype"] = [type_name(v) for v in fit.nodes[idx]]
     t["sptnum"] = fit.nodes[idx]
     t["M_V"] = _round(fit.M_V[idx])

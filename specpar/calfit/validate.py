@@ -7,7 +7,7 @@ import numpy as np
 import pandas as pd
 from astropy.table import Table
 
-from specpar.sptype import TEMPERATURE_CLASSES
+from specpar.core.sptype import TEMPERATURE_CLASSES
 
 from .sample import UBV_ERRORS, group_labels
 

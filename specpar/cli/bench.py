@@ -5,7 +5,7 @@ __all__ = ["register"]
 
 
 def run(args) -> int:
-    from specpar.bench import run_benchmark, run_dataset_benchmark
+    from specpar.batch.bench import run_benchmark, run_dataset_benchmark
     if args.dataset:
         run_dataset_benchmark(n_rows=args.rows, workdir=args.workdir)
     else:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from specpar.calfit.options import CLI_OPTIONS, api_options
 from specpar.core.errors import InputError
-from specpar.tableio import FORMATS
+from specpar.io.formats import FORMATS
 
 __all__ = ["register"]
 
@@ -16,7 +16,8 @@ DESCRIPTION = ("Fit M_V, its intrinsic scatter and intrinsic B-V/U-B per spectra
 
 def _run(args):
     from specpar.calfit import calibrate, write_calibrations
-    from specpar.tableio import read_table, write_table
+    from specpar.io.read import read_table
+    from specpar.io.write import write_table
     table = read_table(args.input, args.in_format)
     options = api_options(CLI_OPTIONS.from_namespace(args))
     options["sample"] = options["sample"] or f"stars of {args.input}"

@@ -4,7 +4,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from specpar.columns import column_map as _column_map
+from specpar.io.columns import column_map as _column_map
 
 __all__ = ["Parser", "column_map"]
 

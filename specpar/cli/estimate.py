@@ -4,11 +4,12 @@ from __future__ import annotations
 import argparse
 import sys
 
-from specpar.bands import BAND_NAMES
+from specpar.core.bands import BAND_NAMES
 from specpar.core.errors import InputError
 from specpar.estimate import MAX_MAG_ERROR
-from specpar.extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
-from specpar.tableio import FORMATS, check_output
+from specpar.calib.extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
+from specpar.io.atomic import check_output
+from specpar.io.formats import FORMATS
 
 from .common import column_map
 
@@ -95,8 +96,9 @@ def _add_estimate_options(p):
 
 
 def run(args) -> int:
-    from specpar.columns import describe_mapping
-    from specpar.stream import estimate_file, is_dataset
+    from specpar.io.columns import describe_mapping
+    from specpar.batch.parquet import is_dataset
+    from specpar.batch.stream import estimate_file
     inputs = [args.input, *(args.calibration or ())]
     # everything about the output is checked before reading and computing
     # (a dataset folder or a Dask run publishes a folder or file of its own, checked there)

@@ -38,7 +38,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(args=None) -> int:
     """Entry point; returns the exit status."""
-    from specpar.tableio import Terminated
+    from specpar.io.atomic import Terminated
     parser = build_parser()
     ns = parser.parse_args(args)
     if not ns.command:

@@ -6,7 +6,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..core.errors import InputError
-from ..tableio import atomic_write
+from .atomic import atomic_write
 
 __all__ = ["FIGURE_FORMATS", "figure_format", "new_figure", "save_figure"]
 

@@ -11,8 +11,8 @@ import pytest
 
 from specpar import estimate
 from specpar.calfit import calibrate, fit_luminosity, write_calibrations
-from specpar.calibration import load_calibration
-from specpar.cli import main
+from specpar.calib.tables import load_calibration
+from specpar.cli.main import main
 
 MALMQUIST = 0.6 * np.log(10.0)  # Malmquist (1922): <M> of a magnitude-limited sample = M0 - 1.382 sig^2
 

@@ -3,7 +3,7 @@ Python API's (a fact of this code base, checked on the parsed arguments)."""
 import pytest
 
 from specpar.calfit.options import CALIBRATE_OPTIONS, api_options
-from specpar.cli import build_parser
+from specpar.cli.main import build_parser
 from specpar.core.errors import InputError
 
 

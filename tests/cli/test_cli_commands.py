@@ -14,8 +14,9 @@ import pytest
 from astropy.table import Table
 
 from specpar import __version__
-from specpar.cli import main
-from specpar.tableio import read_table, write_table
+from specpar.cli.main import main
+from specpar.io.read import read_table
+from specpar.io.write import write_table
 
 SAMPLE = Path(__file__).resolve().parents[2] / "samples" / "survey.csv"
 

@@ -1,7 +1,7 @@
 """Speed and scale: the per-observable-set solver, streaming, Parquet datasets
 and the Dask engine.
 
-The rows here are invented (specpar.bench.synthetic_mixed: the shipped
+The rows here are invented (specpar.batch.bench.synthetic_mixed: the shipped
 calibration plus a random distance, reddening and noise). They prove the
 machinery (same answers however the rows are split, grouped or distributed),
 not the science: the published checks live in test_reference.py and
@@ -22,13 +22,13 @@ import pyarrow.parquet as pq
 import pytest
 
 from specpar import estimate
-from specpar.bands import BANDS, chain_matrices
-from specpar.bench import synthetic_mixed
-from specpar.cli import main
-from specpar.solver import Observables, solve
-from specpar.stream import estimate_file
+from specpar.core.bands import BANDS, chain_matrices
+from specpar.batch.bench import synthetic_mixed
+from specpar.cli.main import main
+from specpar.core.solver import Observables, solve
+from specpar.batch.stream import estimate_file
 
-SAMPLE = Path(__file__).resolve().parent.parent / "samples" / "survey.csv"
+SAMPLE = Path(__file__).resolve().parents[2] / "samples" / "survey.csv"
 _P, _ = chain_matrices()
 
 
@@ -71,9 +71,9 @@ def _padded_reference(obs, absmag, modes, var_mv, var_colour, R, dR, sigma_rv):
 
 def test_grouped_solver_matches_padded_formulation():
     """Solving each star at its own size changes nothing beyond rounding."""
-    from specpar.calibration import default_calibrations
-    from specpar.extinction import band_coefficients, coefficient_derivative
-    from specpar.sptype import parse_sptypes
+    from specpar.calib.tables import default_calibrations
+    from specpar.calib.extinction import band_coefficients, coefficient_derivative
+    from specpar.core.sptype import parse_sptypes
     frame = synthetic_mixed(3000, seed=11)
     names = [b.name for b in BANDS]
     y = frame[names].to_numpy(float)
@@ -201,7 +201,7 @@ def test_too_many_draws_is_one_clear_line(capsys, mixed_parquet, tmp_path):
 
 
 def test_bench_mixed_runs(tmp_path):
-    from specpar.bench import run_benchmark
+    from specpar.batch.bench import run_benchmark
     fig = run_benchmark(n_rows=3000, n_loop=200, workdir=tmp_path, mixed=True)
     assert fig["rows"] == 3000 and fig["rows_per_s"] > 0 and fig["loop_rows_per_s"] > 0
     assert 2.5 < fig["bands_per_star"] < 3.7  # the issue's mix: 3.1 bands per star on average
@@ -241,7 +241,7 @@ def test_dask_single_file_joined_in_order(cluster, mixed_parquet, tmp_path):
 def test_dask_dataframe_entry_point(cluster):
     dd = pytest.importorskip("dask.dataframe")
     from distributed import Client
-    from specpar.daskrun import estimate_dask
+    from specpar.batch.daskrun import estimate_dask
     frame = synthetic_mixed(900, seed=21)
     with Client(cluster.scheduler_address):
         got = estimate_dask(dd.from_pandas(frame, npartitions=4), method="mc", n_draws=25, seed=4).compute()

@@ -11,8 +11,8 @@ import numpy as np
 from scipy import stats
 
 from specpar.estimate import _chi2_sf
-from specpar.numfmt import format_each
-from specpar.solver import observable_groups
+from specpar.core.numfmt import format_each
+from specpar.core.solver import observable_groups
 
 
 def test_chi2_sf_matches_scipy_stats_bit_for_bit():

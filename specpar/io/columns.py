@@ -20,7 +20,9 @@ import re
 
 import pandas as pd
 
-from .bands import BAND_NAMES
+from specpar.core.bands import BAND_NAMES
+
+from ..core.errors import InputError
 
 __all__ = ["resolve_columns", "known_targets", "column_map", "describe_mapping", "NUMERIC_TARGETS"]
 
@@ -83,18 +85,18 @@ def column_map(pairs) -> dict:
 
     Raises
     ------
-    ValueError
+    InputError
         A pair without ``=`` or with an empty side, or one of our names given twice.
     """
     out = {}
     for p in pairs or ():
         if "=" not in p:
-            raise ValueError(f"--col takes OURS=YOURS (e.g. V=Vmag), got {p!r}")
+            raise InputError(f"--col takes OURS=YOURS (e.g. V=Vmag), got {p!r}")
         ours, theirs = (s.strip() for s in p.split("=", 1))
         if not ours or not theirs:
-            raise ValueError(f"--col takes OURS=YOURS with both names given (e.g. V=Vmag), got {p!r}")
+            raise InputError(f"--col takes OURS=YOURS with both names given (e.g. V=Vmag), got {p!r}")
         if ours in out and out[ours] != theirs:
-            raise ValueError(f"--col maps {ours} twice ({out[ours]!r} and {theirs!r}); keep one")
+            raise InputError(f"--col maps {ours} twice ({out[ours]!r} and {theirs!r}); keep one")
         out[ours] = theirs
     return out
 
@@ -135,7 +137,7 @@ def _matches(spelling: str, column: str) -> bool:
 def _check_kind(frame, target, source) -> None:
     col = frame[source]
     if isinstance(col, pd.DataFrame):
-        raise ValueError(f"the input has more than one column named {source!r}; rename them first")
+        raise InputError(f"the input has more than one column named {source!r}; rename them first")
     kind = col.dtype.kind
     if _numeric_target(target):
         if kind in "fiub":
@@ -145,21 +147,74 @@ def _check_kind(frame, target, source) -> None:
         text = col.dropna()
         text = text[text.map(lambda v: str(v).strip() not in ("", "--", "nan", "NaN"))]
         if len(text):
-            raise ValueError(f"column {source!r} given for {target} holds text (e.g. {str(text.iloc[0])[:40]!r}), "
+            raise InputError(f"column {source!r} given for {target} holds text (e.g. {str(text.iloc[0])[:40]!r}), "
                              f"not numbers; map {target} to a numeric column")
     elif target == "sptype" and kind in "fiub" and col.notna().any():
-        raise ValueError(f"column {source!r} given for sptype holds numbers, not MK types such as 'K1 III'; "
+        raise InputError(f"column {source!r} given for sptype holds numbers, not MK types such as 'K1 III'; "
                          "map sptype to the column with the spectral types")
 
 
 def _take_one(candidates, target, what, mapping, used) -> None:
     """Map ``target`` to the single candidate column; several are an error listing them."""
     if len(candidates) > 1:
-        raise ValueError(f"{what}: {', '.join(map(repr, candidates))}; choose one with --col {target}=NAME "
+        raise InputError(f"{what}: {', '.join(map(repr, candidates))}; choose one with --col {target}=NAME "
                          f"(Python: columns={{'{target}': NAME}})")
     if candidates:
         mapping[target] = candidates[0]
         used.add(candidates[0])
+
+
+def _check_explicit(columns: dict, names: list, present: set) -> None:
+    """Errors in an explicit mapping: unknown targets, names not in the input, a column mapped twice."""
+    unknown = [t for t in columns if not _is_target(str(t))]
+    if unknown:
+        raise InputError(f"unknown target column(s) {', '.join(map(repr, unknown))} in the column mapping; "
+                         f"ours are {', '.join(BAND_NAMES)}, e_<band>, colours such as B-V and e_B-V, "
+                         f"{', '.join(OTHER_TARGETS)}")
+    missing = [s for s in columns.values() if s not in present]
+    if missing:
+        raise InputError(f"column(s) {', '.join(map(repr, missing))} named in the column mapping "
+                         f"are not in the input; it has {', '.join(names)}")
+    by_source = {}
+    for t, s in columns.items():
+        by_source.setdefault(s, []).append(t)
+    twice = {s: ts for s, ts in by_source.items() if len(ts) > 1}
+    if twice:
+        s, ts = next(iter(twice.items()))
+        raise InputError(f"column {s!r} is mapped to {' and '.join(ts)}; map each column once")
+
+
+def _recognise_values(names: list, present: set, columns: dict, mapping: dict) -> None:
+    """Add to ``mapping`` the value columns (not errors) found by their catalogue spellings."""
+    used = set(mapping.values()) | set(columns.values())
+    lower_names = {n.lower() for n in names}
+    for target, spellings in _alias_table(lower_names).items():
+        if target.startswith("e_") or target in mapping or target in present:
+            continue
+        hits = [n for n in names if n not in used and not _is_target(n)
+                and any(_matches(sp, n) for sp in spellings)]
+        _take_one(hits, target, f"several columns could be {target}", mapping, used)
+
+
+def _add_error_columns(names: list, present: set, columns: dict, mapping: dict, recognise: bool) -> None:
+    """A band, colour or parallax brings its error column along, spelled after the
+    column actually used (Vmag -> e_Vmag, Vmag_err ...; parallax -> parallax_error)."""
+    used = set(mapping.values()) | set(columns.values())
+    lower = {}
+    for n in names:
+        lower.setdefault(n.lower(), []).append(n)
+    for t in [t for t in list(mapping) + [n for n in names if _is_target(n)] if not t.startswith("e_")]:
+        if t in ("id", "sptype", "pmode", "period_d"):
+            continue
+        et = f"e_{t}"
+        if et in mapping or et in present or et in columns:
+            continue
+        src = mapping.get(t, t)
+        if src == t and not recognise:
+            continue
+        found = [n for e in _error_spellings(src) for n in lower.get(e, []) if n not in used]
+        _take_one(list(dict.fromkeys(found)), et, f"several columns could be the error of {src} ({et})",
+                  mapping, used)
 
 
 def resolve_columns(frame: pd.DataFrame, columns=None, *, recognise=True):
@@ -186,7 +241,7 @@ def resolve_columns(frame: pd.DataFrame, columns=None, *, recognise=True):
 
     Raises
     ------
-    ValueError
+    InputError
         Unknown target; a name not in the input (the message lists the columns
         found); one column claimed by two targets; a result name that already
         exists; a column whose content does not fit the target; two or more
@@ -195,63 +250,24 @@ def resolve_columns(frame: pd.DataFrame, columns=None, *, recognise=True):
     columns = dict(columns or {})
     names = [str(c) for c in frame.columns]
     present = set(names)
-    unknown = [t for t in columns if not _is_target(str(t))]
-    if unknown:
-        raise ValueError(f"unknown target column(s) {', '.join(map(repr, unknown))} in the column mapping; "
-                         f"ours are {', '.join(BAND_NAMES)}, e_<band>, colours such as B-V and e_B-V, "
-                         f"{', '.join(OTHER_TARGETS)}")
-    missing = [s for s in columns.values() if s not in present]
-    if missing:
-        raise ValueError(f"column(s) {', '.join(map(repr, missing))} named in the column mapping "
-                         f"are not in the input; it has {', '.join(names)}")
-    by_source = {}
-    for t, s in columns.items():
-        by_source.setdefault(s, []).append(t)
-    twice = {s: ts for s, ts in by_source.items() if len(ts) > 1}
-    if twice:
-        s, ts = next(iter(twice.items()))
-        raise ValueError(f"column {s!r} is mapped to {' and '.join(ts)}; map each column once")
+    _check_explicit(columns, names, present)
     mapping = {t: s for t, s in columns.items() if t != s}
     if recognise:  # values first; each error column is then found from its value's spelling
-        used = set(mapping.values()) | set(columns.values())
-        lower_names = {n.lower() for n in names}
-        for target, spellings in _alias_table(lower_names).items():
-            if target.startswith("e_") or target in mapping or target in present:
-                continue
-            hits = [n for n in names if n not in used and not _is_target(n)
-                    and any(_matches(sp, n) for sp in spellings)]
-            _take_one(hits, target, f"several columns could be {target}", mapping, used)
-    # a band, colour or parallax brings its error column along, spelled after the
-    # column actually used (Vmag -> e_Vmag, Vmag_err ...; parallax -> parallax_error)
-    used = set(mapping.values()) | set(columns.values())
-    lower = {}
-    for n in names:
-        lower.setdefault(n.lower(), []).append(n)
-    for t in [t for t in list(mapping) + [n for n in names if _is_target(n)] if not t.startswith("e_")]:
-        if t in ("id", "sptype", "pmode", "period_d"):
-            continue
-        et = f"e_{t}"
-        if et in mapping or et in present or et in columns:
-            continue
-        src = mapping.get(t, t)
-        if src == t and not recognise:
-            continue
-        found = [n for e in _error_spellings(src) for n in lower.get(e, []) if n not in used]
-        _take_one(list(dict.fromkeys(found)), et, f"several columns could be the error of {src} ({et})",
-                  mapping, used)
+        _recognise_values(names, present, columns, mapping)
+    _add_error_columns(names, present, columns, mapping, recognise)
     # result names must be unique: a target that exists and is not itself mapped away
     sources = set(mapping.values())
     clash = [t for t in mapping if t in present and t not in sources]
     if clash:
         t = clash[0]
-        raise ValueError(f"mapping {t}={mapping[t]} gives a second {t!r} column: the input already has "
+        raise InputError(f"mapping {t}={mapping[t]} gives a second {t!r} column: the input already has "
                          f"one; rename or map away the input's {t!r} first")
     for t, s in mapping.items():
         _check_kind(frame, t, s)
     renamed = frame.rename(columns={s: t for t, s in mapping.items()})
     dup = [c for c in pd.Index(renamed.columns)[pd.Index(renamed.columns).duplicated()]]
     if dup:
-        raise ValueError(f"the column mapping leaves duplicate columns {', '.join(map(repr, dup))}; "
+        raise InputError(f"the column mapping leaves duplicate columns {', '.join(map(repr, dup))}; "
                          "map each of our names to one column")
     return renamed, mapping
 

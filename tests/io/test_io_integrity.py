@@ -21,19 +21,13 @@ from astropy.io import fits
 from astropy.table import Table
 
 from specpar import estimate
-from specpar.cli import main
-from specpar.flags import Flag
-from specpar.tableio import read_table, write_table
-
-
-def resolve_columns(*args, **kwargs):
-    from specpar.columns import resolve_columns as f
-    return f(*args, **kwargs)
-
-
-def _tio(name):
-    import specpar.tableio
-    return getattr(specpar.tableio, name)
+from specpar.cli.main import main
+from specpar.core.flags import Flag
+from specpar.io.atomic import check_output, publish, sweep_stale_temps, temp_path_for
+from specpar.io.columns import resolve_columns
+from specpar.io.formats import sidecar_path
+from specpar.io.read import read_table
+from specpar.io.write import write_table
 
 STARS = """\
 id,sptype,B,V,J
@@ -336,7 +330,7 @@ def test_output_checked_before_computing(capsys, stars, tmp_path, monkeypatch):
 def test_never_over_calibration_file(capsys, stars, tmp_path):
     # issue 14.7 reproduction: --calibration c.ecsv -o c.ecsv --overwrite replaced the calibration
     cal = tmp_path / "c.ecsv"
-    shipped = Path(__file__).resolve().parent.parent / "calibrations" / "dwarfs_V.ecsv"
+    shipped = Path(__file__).resolve().parents[2] / "calibrations" / "dwarfs_V.ecsv"
     cal.write_bytes(shipped.read_bytes())
     before = cal.read_bytes()
     code, _, err = run(capsys, "estimate", stars, "--calibration", cal, "-o", cal, "--overwrite")
@@ -373,12 +367,12 @@ def test_replaced_file_keeps_its_permissions(capsys, stars, tmp_path):
 def test_publish_is_exclusive_for_new_names(tmp_path):
     # issue 14.9: of two runs that computed the same new name, the second gets an error
     dst = tmp_path / "new.csv"
-    t1, t2 = _tio('temp_path_for')(dst), _tio('temp_path_for')(dst)
+    t1, t2 = temp_path_for(dst), temp_path_for(dst)
     t1.write_text("first\n")
     t2.write_text("second\n")
-    _tio('publish')(t1, dst)
+    publish(t1, dst)
     with pytest.raises(ValueError, match="another process"):
-        _tio('publish')(t2, dst)
+        publish(t2, dst)
     assert dst.read_text() == "first\n"
     assert not t1.exists() and not t2.exists()
 
@@ -393,7 +387,7 @@ def test_stale_temp_files_are_swept(capsys, stars, tmp_path):
     code, _, err = run(capsys, "estimate", stars, "-o", dst, "--quiet")
     assert code == 0, err
     assert not dead.exists() and alive.exists() and other.exists()
-    assert _tio('sweep_stale_temps')(dst) == []
+    assert sweep_stale_temps(dst) == []
 
 
 def test_nested_columns_checked_up_front(capsys, tmp_path, monkeypatch):
@@ -434,7 +428,7 @@ def test_csv_opens_plainly_and_parquet_metadata_is_visible(capsys, stars, tmp_pa
     plain = pd.read_csv(tmp_path / "o.csv")
     assert list(plain["id"]) == ["SPI-01", "SPI-02", "SPI-03"]
     assert not (tmp_path / "o.csv").read_text().startswith("#")
-    side = json.loads(_tio('sidecar_path')(tmp_path / "o.csv").read_text())
+    side = json.loads(sidecar_path(tmp_path / "o.csv").read_text())
     assert side["specpar"]["extinction_law"]
     code, _, err = run(capsys, "estimate", stars, "-o", tmp_path / "o.parquet", "--quiet")
     assert code == 0, err
@@ -503,8 +497,8 @@ def test_ecsv_newline_hash_round_trip(tmp_path):
 
 def test_check_output_api():
     with pytest.raises(ValueError, match="standard output"):
-        _tio('check_output')("-", "parquet")
-    assert _tio('check_output')("-") == "csv"
+        check_output("-", "parquet")
+    assert check_output("-") == "csv"
 
 
 def test_identifiers_with_leading_zeros_stay_text(capsys, tmp_path):
@@ -644,7 +638,7 @@ def test_two_calibration_files_for_one_class_are_refused(tmp_path, capsys):
     # the second one winning
     import shutil
 
-    from specpar.calibration import calibration_dir
+    from specpar.calib.resources import calibration_dir
     a, b = tmp_path / "a.ecsv", tmp_path / "b.ecsv"
     shutil.copy(calibration_dir() / "giants_III.ecsv", a)
     shutil.copy(calibration_dir() / "giants_III.ecsv", b)

@@ -28,8 +28,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from specpar.cli import main
-from specpar.tableio import read_table, write_table
+from specpar.cli.main import main
+from specpar.io.read import read_table
+from specpar.io.write import write_table
 
 HOSTILE = settings(max_examples=30, deadline=None, derandomize=True, database=None,
                    suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])

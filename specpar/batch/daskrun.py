@@ -9,7 +9,7 @@ Two entry points:
   and write its own piece, and publishes the output atomically.
 
 Every worker runs the same per-block function as a single process
-(:func:`specpar.stream.estimate_frame`) with the same options, and every
+(:func:`specpar.batch.blocks.estimate_frame`) with the same options, and every
 row's result depends only on that row and the options (Monte Carlo draws are
 keyed on the row's content, :mod:`specpar.mcdraws`), so the results equal the
 single-process run bit for bit. A failed piece is retried once; if it fails
@@ -23,14 +23,23 @@ from pathlib import Path
 
 import pandas as pd
 
-from .stream import (DEFAULT_CHUNK_ROWS, _combine, _run_file, dataset_files, estimate_frame, is_dataset,
-                     make_options, parquet_writer, publish_folder)
-from .tableio import atomic_write, guess_format
+from ..core.errors import InputError
+from ..io.atomic import atomic_write
+from ..io.formats import guess_format
+from .blocks import DEFAULT_CHUNK_ROWS, combine_counts, estimate_frame, make_options, solve_blocks
+from .parquet import (dataset_files, is_dataset, output_schema, parquet_blocks, parquet_writer, publish_folder,
+                      run_parquet_file)
 
 __all__ = ["estimate_dask", "estimate_file_dask", "connect"]
 
 #: How many times a failed piece is tried again before the run stops.
 RETRIES = 1
+#: How long to wait for a running scheduler to answer (our choice, common practice:
+#: long enough for a scheduler on another machine of the network).
+SCHEDULER_TIMEOUT = "20s"
+#: Pieces of one file submitted per worker at a time: one solving, one waiting, so
+#: workers never idle while memory stays bounded (common practice).
+PIECES_PER_WORKER = 2
 
 
 def _require_dask():
@@ -38,7 +47,7 @@ def _require_dask():
         import dask  # noqa: F401
         import distributed  # noqa: F401
     except ModuleNotFoundError:
-        raise ValueError("the dask engine needs dask and distributed: pip install 'dask[distributed]' "
+        raise InputError("the dask engine needs dask and distributed: pip install 'dask[distributed]' "
                          "(or use the default engine, --engine local)") from None
 
 
@@ -52,15 +61,15 @@ def connect(workers=None, scheduler=None):
     from distributed import Client, LocalCluster
     if scheduler is not None:
         if workers is not None:
-            raise ValueError("give either a scheduler address or a number of local workers, not both")
+            raise InputError("give either a scheduler address or a number of local workers, not both")
         try:
-            return Client(scheduler, timeout="20s"), None
+            return Client(scheduler, timeout=SCHEDULER_TIMEOUT), None
         except Exception as exc:
-            raise ValueError(f"cannot reach the Dask scheduler at {scheduler!r}: {exc}; start one with "
+            raise InputError(f"cannot reach the Dask scheduler at {scheduler!r}: {exc}; start one with "
                              f"'dask scheduler' and workers with 'dask worker {scheduler}'") from None
     n = os.cpu_count() or 1 if workers is None else workers
     if not (isinstance(n, int) and n >= 1):
-        raise ValueError(f"workers must be an integer >= 1, got {workers!r}")
+        raise InputError(f"workers must be an integer >= 1, got {workers!r}")
     cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None)
     return Client(cluster), cluster
 
@@ -111,7 +120,7 @@ def _pieces(src, chunk_rows):
     try:
         md = pq.ParquetFile(str(src)).metadata
     except Exception as exc:
-        raise ValueError(f"cannot read {src} as parquet: {exc}") from None
+        raise InputError(f"cannot read {src} as parquet: {exc}") from None
     pieces, group, rows = [], [], 0
     for i in range(md.num_row_groups):
         group.append(i)
@@ -138,12 +147,12 @@ def _rows(pieces) -> int:
 def _solve_piece(path, row_groups, out_path, opts, chunk_rows):
     """Worker task: solve one piece and write it to ``out_path``; the row counts."""
     Path(out_path).parent.mkdir(parents=True, exist_ok=True)
-    return _run_file(path, "parquet", out_path, "parquet", opts, chunk_rows, 1, None, row_groups)
+    return run_parquet_file(path, out_path, opts, chunk_rows, 1, None, row_groups)
 
 
 def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk_rows=DEFAULT_CHUNK_ROWS,
                        workers=None, scheduler=None, overwrite=False, progress=False):
-    """:func:`specpar.stream.estimate_file` with ``engine="dask"`` (Parquet input only).
+    """:func:`specpar.batch.stream.estimate_file` with ``engine="dask"`` (Parquet input only).
 
     The pieces are a dataset's files or groups of a file's row groups; each
     worker writes its piece into a hidden temporary folder beside the output
@@ -152,49 +161,13 @@ def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk
     input; a single file gives a single file, joined from the pieces in order.
     """
     src, dst = Path(src), Path(dst)
-    if not is_dataset(src) and guess_format(src, in_format) != "parquet":
-        raise ValueError(f"the dask engine reads Parquet files and datasets, not {src.name}; "
-                         f"convert it to Parquet or use the default engine (--engine local)")
-    if not is_dataset(src) and not src.is_file():
-        raise ValueError(f"input file {src} does not exist")
-    if not is_dataset(src) and guess_format(dst, out_format) != "parquet":
-        raise ValueError(f"the dask engine writes Parquet; give the output a .parquet name, not {dst.name}")
-    if is_dataset(src) and dst.suffix and guess_format(dst, out_format) != "parquet":
-        raise ValueError(f"a dataset input {src} writes a dataset folder; give a folder name, not {dst.name}")
+    _check_paths(src, dst, in_format, out_format)
     pieces = _pieces(src, chunk_rows)
     client, cluster = connect(workers, scheduler)
     try:
-        def build(tmp):
-            from distributed import as_completed
-            futures = {}
-            for name, path, groups, rel in pieces:
-                fut = client.submit(_solve_piece, path, groups, str(tmp / rel), opts, chunk_rows,
-                                    retries=RETRIES, pure=False, key=f"specpar-{abs(hash((str(tmp), name)))}")
-                futures[fut] = name
-            bar = None
-            if progress:
-                from tqdm.auto import tqdm
-                bar = tqdm(total=_rows(pieces), unit="row", unit_scale=True, desc="specpar estimate (dask)")
-            total = {}
-            try:
-                for fut in as_completed(list(futures)):
-                    try:
-                        total = _combine(total, fut.result())
-                    except Exception as exc:
-                        for other in futures:
-                            other.cancel()
-                        msg = exc.args[0] if exc.args else exc
-                        raise ValueError(f"partition {futures[fut]} failed {RETRIES + 1} times; "
-                                         f"no output written: {msg}") from None
-                    if bar is not None:
-                        bar.update(fut.result()["rows"])
-            finally:
-                if bar is not None:
-                    bar.close()
-            return total
-
         if is_dataset(src):
-            return publish_folder(build, dst, overwrite=overwrite, inputs=[src])
+            return publish_folder(lambda tmp: _solve_into_folder(client, pieces, tmp, opts, chunk_rows, progress),
+                                  dst, overwrite=overwrite, inputs=[src])
         result = {}
 
         def writer(tmp_file):
@@ -205,6 +178,59 @@ def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk
         client.close()
         if cluster is not None:
             cluster.close()
+
+
+def _check_paths(src: Path, dst: Path, in_format, out_format) -> None:
+    """Parquet in, Parquet out (a folder for a dataset), else one clear error."""
+    if not is_dataset(src) and guess_format(src, in_format) != "parquet":
+        raise InputError(f"the dask engine reads Parquet files and datasets, not {src.name}; "
+                         f"convert it to Parquet or use the default engine (--engine local)")
+    if not is_dataset(src) and not src.is_file():
+        raise InputError(f"input file {src} does not exist")
+    if not is_dataset(src) and guess_format(dst, out_format) != "parquet":
+        raise InputError(f"the dask engine writes Parquet; give the output a .parquet name, not {dst.name}")
+    if is_dataset(src) and dst.suffix and guess_format(dst, out_format) != "parquet":
+        raise InputError(f"a dataset input {src} writes a dataset folder; give a folder name, not {dst.name}")
+
+
+def _dask_bar(pieces, progress):
+    """A progress bar over the rows of all pieces (None without ``progress``)."""
+    if not progress:
+        return None
+    from tqdm.auto import tqdm
+    return tqdm(total=_rows(pieces), unit="row", unit_scale=True, desc="specpar estimate (dask)")
+
+
+def _failed(name, exc) -> InputError:
+    """The error that stops the run when a piece failed on every try."""
+    msg = exc.args[0] if exc.args else exc
+    return InputError(f"partition {name} failed {RETRIES + 1} times; no output written: {msg}")
+
+
+def _solve_into_folder(client, pieces, tmp, opts, chunk_rows, progress) -> dict:
+    """Every worker writes its pieces under the folder ``tmp``; the counts."""
+    from distributed import as_completed
+    futures = {}
+    for name, path, groups, rel in pieces:
+        fut = client.submit(_solve_piece, path, groups, str(tmp / rel), opts, chunk_rows,
+                            retries=RETRIES, pure=False, key=f"specpar-{abs(hash((str(tmp), name)))}")
+        futures[fut] = name
+    bar = _dask_bar(pieces, progress)
+    total = {}
+    try:
+        for fut in as_completed(list(futures)):
+            try:
+                total = combine_counts(total, fut.result())
+            except Exception as exc:
+                for other in futures:
+                    other.cancel()
+                raise _failed(futures[fut], exc) from None
+            if bar is not None:
+                bar.update(fut.result()["rows"])
+    finally:
+        if bar is not None:
+            bar.close()
+    return total
 
 
 class _TableSink:
@@ -227,10 +253,9 @@ class _TableSink:
 def _solve_piece_table(path, row_groups, opts, chunk_rows):
     """Worker task: solve one piece and return (counts, metadata, Arrow table)."""
     import pyarrow as pa
-    from .stream import _parquet_blocks, _stream
-    total, empty, blocks = _parquet_blocks(path, chunk_rows, row_groups)
+    total, empty, blocks = parquet_blocks(path, chunk_rows, row_groups)
     sink = _TableSink()
-    summary = _stream(blocks, sink, opts, 1, None, empty)
+    summary = solve_blocks(blocks, sink, opts, 1, None, empty)
     table = pa.concat_tables(sink.tables, promote_options="permissive")
     return summary, sink.meta, table
 
@@ -239,14 +264,10 @@ def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress):
     """Solve the pieces of one file on the cluster and write them into one Parquet
     file in order, as they come back; at most a few pieces are held at once."""
     import json
-    import pyarrow as pa
     n_workers = max(1, len(client.scheduler_info().get("workers", {})))
-    window = 2 * n_workers
+    window = PIECES_PER_WORKER * n_workers
     futures, names = [], []
-    bar = None
-    if progress:
-        from tqdm.auto import tqdm
-        bar = tqdm(total=_rows(pieces), unit="row", unit_scale=True, desc="specpar estimate (dask)")
+    bar = _dask_bar(pieces, progress)
 
     def submit(i):
         name, path, groups, _ = pieces[i]
@@ -264,19 +285,16 @@ def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress):
             except Exception as exc:
                 for f in futures[i:]:
                     f.cancel()
-                msg = exc.args[0] if exc.args else exc
-                raise ValueError(f"partition {names[i]} failed {RETRIES + 1} times; no output written: {msg}") from None
+                raise _failed(names[i], exc) from None
             futures[i] = None  # release the piece
             if i + window < len(pieces):
                 submit(i + window)
             if writer is None:
                 extra = {b"specpar": json.dumps(meta, sort_keys=True).encode()}
-                schema = table.schema.with_metadata({**(table.schema.metadata or {}), **extra})
-                schema = pa.schema([pa.field(f.name, pa.large_string()) if pa.types.is_null(f.type) else f
-                                    for f in schema], metadata=schema.metadata)
+                schema = output_schema(table.schema, extra)
                 writer = parquet_writer(out_path, schema)
             writer.write_table(table.select(schema.names).cast(schema))
-            total = _combine(total, summary)
+            total = combine_counts(total, summary)
             if bar is not None:
                 bar.update(summary["rows"])
     finally:

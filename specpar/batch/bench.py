@@ -11,10 +11,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .calibration import default_calibrations
-from .extinction import DEFAULT_LAW, DEFAULT_RV, band_coefficients
-from .sptype import parse_one
-from .bands import BAND_NAMES
+from specpar.calib.tables import default_calibrations
+from specpar.calib.extinction import DEFAULT_LAW, DEFAULT_RV, band_coefficients
+from specpar.core.sptype import parse_one
+from specpar.core.bands import BAND_NAMES
 
 __all__ = ["synthetic_catalogue", "synthetic_mixed", "per_row_two_band", "run_benchmark",
            "write_synthetic_dataset", "run_dataset_benchmark"]

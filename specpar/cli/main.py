@@ -46,9 +46,8 @@ def main(args=None) -> int:
         return 2
     try:
         return ns.func(ns)
-    except (ValueError, TypeError, OSError, KeyError) as exc:
-        msg = exc.args[0] if isinstance(exc, KeyError) and exc.args else exc
-        print(f"specpar: error: {msg}", file=sys.stderr)
+    except InputError as exc:
+        print(f"specpar: error: {exc}", file=sys.stderr)
         return 1
     except MemoryError:
         print("specpar: error: out of memory; use smaller blocks (--chunk-rows) or fewer draws (--mc)",

@@ -288,6 +288,17 @@ def _diagnose(rows, results, p, units, cals, sptnum, lc_bright, lc_faint, thresh
 
 # ----------------------------------------------------------------------------- main hook
 
+def _tension_flags(p, z, snr, units, threshold):
+    """Flags of the parallax check per row, and the rows in tension."""
+    flags = p.flags.copy()
+    flags[units] |= int(Flag.PLX_UNITS_SUSPECT)
+    with np.errstate(invalid="ignore"):
+        flags[snr < 1.0 / LOW_SNR_FRACTION] |= int(Flag.PLX_LOW_SNR)
+        tense = np.abs(z) > threshold
+    flags[tense] |= int(Flag.PLX_TENSION) | int(Flag.PLX_COMBINED_WITHHELD)
+    return flags, tense
+
+
 def crosscheck(frame, results, *, cals, sptnum, lc_bright, lc_faint, opts):
     """Parallax columns, flags and notes for :func:`specpar.estimate`.
 
@@ -311,7 +322,7 @@ def crosscheck(frame, results, *, cals, sptnum, lc_bright, lc_faint, opts):
     columns : dict of ndarray
         See :data:`COLUMNS`.
     flags : ndarray of int64
-        PLX_TENSION, PLX_REJECTED, PLX_LOW_SNR, PLX_UNITS_SUSPECT bits.
+        PLX_TENSION, PLX_COMBINED_WITHHELD, PLX_REJECTED, PLX_LOW_SNR, PLX_UNITS_SUSPECT bits.
     detail : ndarray of str
         Readable reasons ('' where there is nothing to say).
 
@@ -324,19 +335,12 @@ def crosscheck(frame, results, *, cals, sptnum, lc_bright, lc_faint, opts):
     with np.errstate(invalid="ignore", divide="ignore"):
         z = tension_z(p.plx, p.e_plx, dm, e_dm)
         snr = p.plx / p.e_plx
-    thr = float(opts.tension)
-    units = _units_suspect(p, z, dm, e_dm, thr)
-    flags = p.flags.copy()
-    flags[units] |= int(Flag.PLX_UNITS_SUSPECT)
-    with np.errstate(invalid="ignore"):
-        flags[snr < 1.0 / LOW_SNR_FRACTION] |= int(Flag.PLX_LOW_SNR)
-        tense = np.abs(z) > thr
-    flags[tense] |= int(Flag.PLX_TENSION)
+    units = _units_suspect(p, z, dm, e_dm, thr := float(opts.tension))
+    flags, tense = _tension_flags(p, z, snr, units, thr)
     only = distance_posterior(p.plx, p.e_plx, length_scale_pc=opts.length_scale_pc)
     comb = distance_posterior(p.plx, p.e_plx, dm=dm, e_dm=e_dm, length_scale_pc=opts.length_scale_pc)
     # parallax and photometry in tension: their combination would be a tight distance that fits
-    # neither, so it is withheld (and flagged) rather than given
-    flags[tense] |= int(Flag.PLX_COMBINED_WITHHELD)
+    # neither, so it is withheld (flagged PLX_COMBINED_WITHHELD) rather than given
     for arr in (comb.median, comb.lo, comb.hi):
         arr[tense] = np.nan
     cols = {

@@ -17,10 +17,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from specpar.bands import BAND_NAMES, band_index
-from specpar.calibration import default_calibrations
-from specpar.extinction import band_coefficients
-from specpar.sptype import parse_sptypes
+from specpar.core.bands import BAND_NAMES, band_index
+from specpar.calib.tables import default_calibrations
+from specpar.calib.extinction import band_coefficients
+from specpar.core.sptype import parse_sptypes
 
 HERE = Path(__file__).resolve().parent
 TYPES = [
@@ -98,7 +98,7 @@ def parallaxes(rng, frame, dist) -> None:
 
 def pulsators(rng) -> None:
     """Invented classical Cepheids (mean V and Ic magnitudes, periods in days)."""
-    from specpar.cepheid import load_pl_calibration
+    from specpar.calib.cepheid_pl import load_pl_calibration
     rel = load_pl_calibration().relations
     rows = []
     for i, (period, mode, sptype) in enumerate([(5.4, "F", "F6Ib"), (9.8, "F", "G0Ib"), (15.3, "F", "G2Iab"),

@@ -5,7 +5,8 @@ from .core.about import VERSION as __version__
 from specpar.core.sptype import parse_sptypes # noqa: E402
 from specpar.calib.tables import CalibrationSet, load_calibration, default_calibrations # noqa: E402
 from specpar.calib.extinction import band_coefficients, LAWS # noqa: E402
-from .estimate import estimate, EstimateOptions  # noqa: E402
+from specpar.pipeline.estimate import estimate # noqa: E402
+from specpar.pipeline.options import EstimateOptions
 from .batch.stream import estimate_file  # noqa: E402
 from .calfit import calibrate, write_calibrations, CalibrationFit  # noqa: E402
 

@@ -15,7 +15,8 @@ from dataclasses import fields, replace
 import numpy as np
 import pandas as pd
 
-from specpar.estimate import EstimateOptions, run_estimate
+from specpar.pipeline.estimate import run_estimate
+from specpar.pipeline.options import EstimateOptions
 from specpar.core.flags import Flag
 
 from ..core.errors import InputError

@@ -16,7 +16,7 @@ import gzip
 import json
 from dataclasses import replace
 
-from specpar.estimate import run_estimate
+from specpar.pipeline.estimate import run_estimate
 
 from ..core.errors import InputError
 from ..io.atomic import atomic_write, check_output

@@ -34,7 +34,7 @@ from pathlib import Path
 
 import numpy as np
 
-from specpar.estimate import run_estimate
+from specpar.pipeline.estimate import run_estimate
 
 from ..core.errors import InputError
 from ..io.atomic import atomic_write

@@ -49,7 +49,7 @@ def _estimate_variance(trial: Table, rows: pd.DataFrame, rv) -> np.ndarray:
     when the calibration has (almost) no intrinsic M_V scatter."""
     import os
     import tempfile
-    from specpar.estimate import estimate
+    from specpar.pipeline.estimate import estimate
     if len(trial) < 2:
         return np.zeros(len(rows))
     t = trial.copy()

@@ -27,7 +27,7 @@ _COLUMNS = ("lclass", "tclass", "n", "d_max_pc", "dmag_median", "ratio_median", 
 
 
 def _photometric(stars: Table, calibrations=(), **estimate_kw) -> pd.DataFrame:
-    from specpar.estimate import estimate
+    from specpar.pipeline.estimate import estimate
     inp = Table()
     inp["sptype"] = stars["sptype"]
     for c, e in UBV_ERRORS.items():

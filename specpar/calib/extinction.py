@@ -28,8 +28,10 @@ from dust_extinction import parameter_averages as _pa
 
 from ..core.bands import BANDS, band_index
 from ..core.errors import InputError
+from ..core.solver import solve
 
-__all__ = ["LAWS", "DEFAULT_LAW", "DEFAULT_RV", "band_coefficients", "check_law"]
+__all__ = ["LAWS", "DEFAULT_LAW", "DEFAULT_RV", "RV_FIT_STEP", "RV_TABLE_STEP", "band_coefficients",
+           "check_law", "rv_limits", "rv_grid", "coefficient_derivative", "coefficients_at", "fit_free_rv"]
 
 #: Laws offered, by the names their papers give them.
 LAWS = {
@@ -41,10 +43,15 @@ LAWS = {
 }
 DEFAULT_LAW = "F99"
 DEFAULT_RV = 3.1
+#: Step of the R_V grid on which a star's chi-square profile is computed when R_V is free
+#: (fine enough for a parabola through the three nodes around the minimum; common practice).
+RV_FIT_STEP = 0.1
+#: Step of the R_V grid on which coefficients are tabulated and interpolated linearly.
+RV_TABLE_STEP = 0.05
 
 
 def check_law(law: str, rv: float) -> None:
-    """Raise ValueError naming the valid choices if ``law``/``rv`` are unusable."""
+    """Raise :class:`InputError` naming the valid choices if ``law``/``rv`` are unusable."""
     if law not in LAWS:
         raise InputError(
             f"unknown extinction law {law!r}; choose one of {', '.join(LAWS)}"
@@ -99,3 +106,72 @@ def coefficient_derivative(law: str, rv: float, step: float = 0.01) -> np.ndarra
     lo, hi = rv_limits(law)
     a, b = max(lo, rv - step), min(hi, rv + step)
     return (band_coefficients(law, b) - band_coefficients(law, a)) / (b - a)
+
+
+def rv_grid(law: str, step: float) -> np.ndarray:
+    """R_V nodes from the lower to the upper end of ``law``'s range, ``step`` apart."""
+    lo, hi = rv_limits(law)
+    return np.round(np.arange(lo, hi + 1e-9, step), 3)
+
+
+def coefficients_at(law, rv):
+    """Extinction coefficients and their R_V derivatives at per-star R_V.
+
+    Interpolated linearly on the :data:`RV_TABLE_STEP` grid of the law's range.
+
+    Returns
+    -------
+    R, dR : ndarray, shape rv.shape + (n_bands,)
+    """
+    grid = rv_grid(law, RV_TABLE_STEP)
+    tab = band_coefficients(law, grid)
+    R = np.stack([np.interp(rv, grid, tab[:, b]) for b in range(len(BANDS))], axis=-1)
+    dtab = np.gradient(tab, grid, axis=0)
+    dR = np.stack([np.interp(rv, grid, dtab[:, b]) for b in range(len(BANDS))], axis=-1)
+    return R, dR
+
+
+#: Square of :data:`RV_FIT_STEP` (rounded so that it is the double nearest 0.01).
+_RV_FIT_STEP_SQ = round(RV_FIT_STEP ** 2, 12)
+
+
+def fit_free_rv(obs, cal, modes, law, codes=None):
+    """Per-star R_V from the chi-square profile on the :data:`RV_FIT_STEP` grid.
+
+    The fit (:func:`specpar.core.solver.solve`) is repeated at every grid node,
+    vectorised over stars; a parabola through the best node and its two
+    neighbours gives R_V (moved by at most one step) and its error
+    ``sqrt(2 / chi2'')``.
+
+    Parameters
+    ----------
+    obs : Observables
+    cal : CalibrationValues
+        One row per calibration code.
+    modes : ndarray
+        Subtype-uncertainty modes per calibration code.
+    law : str
+    codes : ndarray of int, optional
+        Calibration code per row (default one per row).
+
+    Returns
+    -------
+    rv, e_rv : ndarray
+        e_rv is inf where the profile has no curvature.
+    """
+    lo, hi = rv_limits(law)
+    grid = rv_grid(law, RV_FIT_STEP)
+    coeffs = band_coefficients(law, grid)
+    chi2 = np.empty((len(grid), obs.y.shape[0]))
+    for i, R in enumerate(coeffs):  # loop over the R_V grid, not over stars
+        r = solve(obs, cal.absmag, modes, cal.var_mv, cal.var_colour, R, 0 * R, codes=codes)
+        chi2[i] = np.nan_to_num(r.chi2, nan=np.inf)
+    i0 = np.clip(np.argmin(chi2, axis=0), 1, len(grid) - 2)
+    n = np.arange(chi2.shape[1])
+    c_m, c_0, c_p = chi2[i0 - 1, n], chi2[i0, n], chi2[i0 + 1, n]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        curv = (c_p - 2 * c_0 + c_m) / _RV_FIT_STEP_SQ  # second derivative per unit R_V^2
+        shift = np.where(curv > 0, -0.5 * (c_p - c_m) / RV_FIT_STEP / curv, 0.0)
+        e_rv = np.sqrt(2.0 / curv)
+    rv = np.clip(grid[i0] + np.clip(shift, -RV_FIT_STEP, RV_FIT_STEP), lo, hi)
+    return rv, np.where(np.isfinite(e_rv), e_rv, np.inf)

@@ -16,7 +16,7 @@ import numpy as np
 from astropy.table import Table
 from scipy.interpolate import PchipInterpolator
 
-from ..core.bands import BANDS, CALIBRATION_COLOURS, chain_matrices
+from ..core.bands import BANDS, CALIBRATION_COLOURS, V_INDEX, chain_matrices
 from ..core.sptype import CLASS_ORDER
 from .resources import calibration_dir
 from ..core.errors import InputError
@@ -136,7 +136,7 @@ class Calibration:
 
 def _blend(a: CalibrationValues, b: CalibrationValues) -> CalibrationValues:
     """Mean of two neighbouring classes; the variance grows by the half-difference squared."""
-    half_mv = (a.absmag[:, 0] - b.absmag[:, 0]) / 2.0  # column 0 is V
+    half_mv = (a.absmag[:, V_INDEX] - b.absmag[:, V_INDEX]) / 2.0
     half_c = (a.colours - b.colours) / 2.0
     return CalibrationValues(
         (a.absmag + b.absmag) / 2.0,

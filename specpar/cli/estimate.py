@@ -1,19 +1,23 @@
-"""``specpar estimate``: distance for every star of a table."""
+"""``specpar estimate``: the command line of :func:`specpar.estimate` (through
+:func:`specpar.stream.estimate_file`). The estimate options are made from their
+declarations in :mod:`specpar.pipeline.options`; ``--mc N`` (method and draws),
+``--col`` (column mapping) and the file and block options are this command's own."""
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import sys
 
 from specpar.core.bands import BAND_NAMES
+from specpar.calib.extinction import LAWS
+from specpar.io.columns import column_map
 from specpar.core.errors import InputError
-from specpar.estimate import MAX_MAG_ERROR
-from specpar.calib.extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
+from specpar.core.options import OptionSet
+from specpar.pipeline.options import OPTIONS
 from specpar.io.atomic import check_output
 from specpar.io.formats import FORMATS
 
-from .common import column_map
-
-__all__ = ["register"]
+__all__ = ["register", "EPILOG_ESTIMATE"]
 
 EPILOG_ESTIMATE = f"""\
 input columns:
@@ -35,8 +39,17 @@ example:
   specpar estimate samples/survey.csv -o survey_distances.ecsv
 """
 
+#: The declarations as the command line offers them: the law is one of a fixed set there.
+_CLI_OPTIONS = OptionSet(*(dataclasses.replace(o, choices=tuple(LAWS)) if o.name == "law" else o
+                           for o in OPTIONS), groups=OPTIONS.groups)
 
-def _add_estimate_options(p):
+
+def _declared(parser, *names) -> None:
+    """Add the declared options ``names`` (in their declared order)."""
+    _CLI_OPTIONS.add_arguments(parser, skip=[n for n in _CLI_OPTIONS.names() if n not in names])
+
+
+def _add_file_options(p) -> None:
     p.add_argument("input", help="table of stars (CSV, text, ECSV, FITS, VOTable or Parquet; .gz allowed "
                                  "for CSV/text)")
     p.add_argument("-o", "--output", required=True,
@@ -46,42 +59,9 @@ def _add_estimate_options(p):
                                                     "(VOTable: the table index or ID)")
     p.add_argument("--in-format", choices=list(FORMATS), help="input format if the extension does not tell")
     p.add_argument("--out-format", choices=list(FORMATS), help="output format if the extension does not tell")
-    p.add_argument("--col", action="append", metavar="OURS=YOURS",
-                   help="map one of our column names to yours (repeatable)")
-    p.add_argument("--law", default=DEFAULT_LAW, choices=list(LAWS),
-                   help=f"extinction law from dust_extinction (default {DEFAULT_LAW})")
-    p.add_argument("--rv", type=float, default=DEFAULT_RV, help=f"R_V = A_V/E(B-V) (default {DEFAULT_RV})")
-    p.add_argument("--sigma-rv", type=float, default=0.2, help="uncertainty of R_V (default 0.2)")
-    p.add_argument("--fit-rv", action="store_true",
-                   help="fit R_V per star where >= 3 magnitudes and clear reddening constrain it")
-    p.add_argument("--mc", type=int, metavar="N", default=0,
-                   help="Monte Carlo error propagation with N >= 10 draws per star; 0 (the default) "
-                        "means analytic first-order propagation")
-    p.add_argument("--seed", type=int, default=0, help="seed for --mc (default 0)")
-    p.add_argument("--default-error", type=float, default=0.05,
-                   help="error in mag assumed where a magnitude has none (flagged; default 0.05)")
-    p.add_argument("--max-error", type=float, default=MAX_MAG_ERROR, metavar="MAG",
-                   help="a magnitude whose error is above MAG (or zero, negative, infinite: catalogue "
-                        f"sentinels such as 9.99) is not used (flagged; default {MAX_MAG_ERROR:g})")
-    p.add_argument("--max-field-length", type=int, default=None, metavar="N",
-                   help="cut text cells of the output to N characters (counted in the metadata; "
-                        "default: no cut)")
-    p.add_argument("--calibration", action="append", metavar="FILE",
-                   help="your own calibration table (ECSV, same format as the shipped ones); "
-                        "replaces the shipped table of its luminosity class (repeatable)")
-    p.add_argument("--explain", action="store_true", help="add M_<band> and A_<band> columns")
-    g = p.add_argument_group("parallax cross-check (when the input has plx and e_plx in mas)")
-    g.add_argument("--plx-offset", type=float, default=0.0, metavar="MAS",
-                   help="parallax zero point, subtracted from plx (default 0)")
-    g.add_argument("--plx-error-scale", type=float, default=1.0, metavar="F",
-                   help="multiply e_plx by F (default 1)")
-    g.add_argument("--tension", type=float, default=3.0, metavar="Z",
-                   help="flag stars with |z| above Z (default 3)")
-    g.add_argument("--length-scale", type=float, default=1350.0, metavar="PC",
-                   help="length scale of the exponentially decreasing space density prior "
-                        "(Bailer-Jones 2015; default 1350 pc)")
-    p.add_argument("--overwrite", action="store_true", help="replace the output file if it exists")
-    p.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+
+
+def _add_block_options(p) -> None:
     g = p.add_argument_group("large inputs (Parquet and CSV are streamed in blocks; a folder is a Parquet dataset)")
     g.add_argument("--chunk-rows", type=int, default=100_000, metavar="N",
                    help="rows per block (default 100000; 0 reads the table whole)")
@@ -95,11 +75,38 @@ def _add_estimate_options(p):
                    help="dask: address of a running scheduler, e.g. tcp://127.0.0.1:8786")
 
 
-def run(args) -> int:
+def add_estimate_options(p) -> None:
+    """Every argument of ``specpar estimate``, in the order its help lists them."""
+    _add_file_options(p)
+    _declared(p, "columns")
+    _declared(p, "law", "rv", "sigma_rv", "fit_rv")
+    p.add_argument("--mc", type=int, metavar="N", default=0,
+                   help="Monte Carlo error propagation with N >= 10 draws per star; 0 (the default) "
+                        "means analytic first-order propagation")
+    _declared(p, "seed", "default_error", "max_error")
+    p.add_argument("--max-field-length", type=int, default=None, metavar="N",
+                   help="cut text cells of the output to N characters (counted in the metadata; "
+                        "default: no cut)")
+    _declared(p, "calibrations", "explain", "plx_offset", "plx_error_scale", "tension", "length_scale_pc")
+    p.add_argument("--overwrite", action="store_true", help="replace the output file if it exists")
+    p.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+    _add_block_options(p)
+
+
+def estimate_options(args) -> dict:
+    """The keyword options of :func:`specpar.estimate` from parsed arguments."""
+    values = _CLI_OPTIONS.from_namespace(args)
+    values.update(method="mc" if args.mc else "analytic", n_draws=args.mc or OPTIONS["n_draws"].default,
+                  calibrations=tuple(values["calibrations"]), columns=column_map(values["columns"]))
+    return values
+
+
+def _cmd_estimate(args):
     from specpar.io.columns import describe_mapping
     from specpar.batch.parquet import is_dataset
     from specpar.batch.stream import estimate_file
-    inputs = [args.input, *(args.calibration or ())]
+    options = estimate_options(args)
+    inputs = [args.input, *options["calibrations"]]
     # everything about the output is checked before reading and computing
     # (a dataset folder or a Dask run publishes a folder or file of its own, checked there)
     if not (is_dataset(args.input) or args.engine == "dask"):
@@ -110,13 +117,7 @@ def run(args) -> int:
         args.input, args.output, in_format=args.in_format, out_format=args.out_format,
         chunk_rows=args.chunk_rows, threads=args.threads, engine=args.engine, workers=args.workers,
         scheduler=args.scheduler, overwrite=args.overwrite, progress=not args.quiet,
-        hdu=args.hdu, max_field_length=args.max_field_length,
-        law=args.law, rv=args.rv, sigma_rv=args.sigma_rv, fit_rv=args.fit_rv,
-        method="mc" if args.mc else "analytic", n_draws=args.mc or 1000, seed=args.seed,
-        default_error=args.default_error, calibrations=tuple(args.calibration or ()),
-        columns=column_map(args.col), explain=args.explain,
-        plx_offset=args.plx_offset, plx_error_scale=args.plx_error_scale, tension=args.tension,
-        length_scale_pc=args.length_scale, max_error=args.max_error)
+        hdu=args.hdu, max_field_length=args.max_field_length, **options)
     if not args.quiet:
         mapping = describe_mapping(summary.get("column_mapping") or {})
         stream = sys.stderr if args.output == "-" else sys.stdout
@@ -127,9 +128,10 @@ def run(args) -> int:
 
 
 def register(sub) -> None:
+    """Add ``specpar estimate``."""
     p = sub.add_parser("estimate", help="distance for every star of a table",
                        description="Distance, colour excess and extinction for every row of a table "
                                    "of classified stars.",
                        epilog=EPILOG_ESTIMATE, formatter_class=argparse.RawDescriptionHelpFormatter)
-    _add_estimate_options(p)
-    p.set_defaults(func=run)
+    add_estimate_options(p)
+    p.set_defaults(func=_cmd_estimate)

@@ -82,6 +82,12 @@ def band_index(name: str) -> int:
         ) from None
 
 
+#: Column of V in arrays of absolute magnitudes ordered as :data:`BANDS`.
+V_INDEX = band_index("V")
+#: Column of B-V in arrays of intrinsic colours ordered as :data:`CALIBRATION_COLOURS`.
+BV_INDEX = CALIBRATION_COLOURS.index("B-V")
+
+
 def chain_matrices() -> tuple[np.ndarray, np.ndarray]:
     """Linear maps from (M_V, calibration colours) to absolute magnitudes.
 

@@ -10,7 +10,7 @@ import sys
 import numpy as np
 from scipy import stats
 
-from specpar.estimate import _chi2_sf
+from specpar.pipeline.fit import chi2_sf as _chi2_sf
 from specpar.core.numfmt import format_each
 from specpar.core.solver import observable_groups
 

@@ -18,17 +18,19 @@ import pandas as pd
 import pytest
 
 import specpar
-from specpar.calibration import default_calibrations
-from specpar.ebvbound import bound_ebv, truncated_mean_square, truncated_quantile
-from specpar.estimate import EstimateOptions, _calibrate_rows, prepare_observables
-from specpar.extinction import band_coefficients, coefficient_derivative
-from specpar.flags import Flag
-from specpar.solver import Observables, solve
+from specpar.calib.tables import default_calibrations
+from specpar.core.ebvbound import bound_ebv, truncated_mean_square, truncated_quantile
+from specpar.pipeline import EstimateOptions, prepare_observables
+from specpar.pipeline.estimate import SOURCES
+from specpar.pipeline.sources import calibrate_rows
+from specpar.calib.extinction import band_coefficients, coefficient_derivative
+from specpar.core.flags import Flag
+from specpar.core.solver import Observables, solve
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from test_roundtrip import BAND_SETS, ALL_TYPES, draw_stars, summarise, usable_types  # noqa: E402
+from test_pipeline_roundtrip import BAND_SETS, ALL_TYPES, draw_stars, summarise, usable_types  # noqa: E402
 
-SAMPLES = Path(__file__).resolve().parent.parent / "samples"
+SAMPLES = Path(__file__).resolve().parents[2] / "samples"
 
 
 def _blue_star():
@@ -52,7 +54,7 @@ def test_negative_excess_held_at_zero_with_limit_and_note():
 def _nominal_fit(df):
     opts = EstimateOptions()
     prep = prepare_observables(df, opts)
-    rc = _calibrate_rows(prep, default_calibrations(), opts)
+    rc = calibrate_rows(prep, default_calibrations(), opts, SOURCES)
     cal, modes = rc.rows(slice(0, len(df)))
     obs = Observables(prep.obs.y, prep.obs.sigma, prep.obs.L)
     R, dR = band_coefficients("F99", 3.1), coefficient_derivative("F99", 3.1)

@@ -19,11 +19,11 @@ import pytest
 from astropy.table import Table
 
 from specpar import estimate
-from specpar.bands import BAND_NAMES, CALIBRATION_COLOURS, band_index, chain_matrices
-from specpar.cepheid import (fundamental_period, load_pl_calibration, pl_calibration_values,
-                             MODES)
-from specpar.extinction import band_coefficients
-from specpar.flags import Flag
+from specpar.core.bands import BAND_NAMES, CALIBRATION_COLOURS, band_index, chain_matrices
+from specpar.calib.cepheid_pl import fundamental_period, load_pl_calibration, pl_calibration_values
+from specpar.pipeline.cepheid import MODES
+from specpar.calib.extinction import band_coefficients
+from specpar.core.flags import Flag
 
 _P, _ = chain_matrices()
 CAL = load_pl_calibration()

@@ -6,10 +6,10 @@ import pytest
 from astropy.table import Table
 
 import specpar
-from specpar.bands import CALIBRATION_COLOURS, band_index
-from specpar.calibration import default_calibrations, load_calibration, calibration_dir
-from specpar.extinction import band_coefficients
-from specpar.flags import Flag
+from specpar.core.bands import CALIBRATION_COLOURS, band_index
+from specpar.calib.tables import default_calibrations, load_calibration, calibration_dir
+from specpar.calib.extinction import band_coefficients
+from specpar.core.flags import Flag
 
 
 def synth(sptype, dm, ebv, bands, rv=3.1, law="F99"):

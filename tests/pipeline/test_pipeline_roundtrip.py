@@ -21,11 +21,11 @@ import pytest
 from astropy.table import Table, vstack
 
 from specpar import estimate
-from specpar.bands import BAND_NAMES, band_index, chain_matrices
-from specpar.calibration import default_calibrations
-from specpar.extinction import band_coefficients, rv_limits
-from specpar.flags import Flag
-from specpar.sptype import parse_sptypes
+from specpar.core.bands import BAND_NAMES, band_index, chain_matrices
+from specpar.calib.tables import default_calibrations
+from specpar.calib.extinction import band_coefficients, rv_limits
+from specpar.core.flags import Flag
+from specpar.core.sptype import parse_sptypes
 
 _P, _ = chain_matrices()
 

@@ -1,32 +1,19 @@
-"""Checks of the main job against sources outside specpar: the Mamajek dwarf
-table shipped by ``meanstars``, the published CCM89 extinction ratios,
-astropy's distance-modulus conversion and a few published anchors."""
+"""Checks of the main job against sources outside specpar: the published CCM89
+extinction ratios, astropy's distance-modulus conversion and a few published
+anchors (the checks against the ``meanstars`` dwarf table are in
+test_calib_reference_meanstars.py)."""
 import astropy.units as u
-import numpy as np
 import pandas as pd
 import pytest
 from astropy.coordinates import Distance
 from dust_extinction.parameter_averages import CCM89, G23
 
 import specpar
-from specpar.bands import BANDS, band_index
-from specpar.calibration import default_calibrations
-from specpar.extinction import band_coefficients
-from specpar.solver import dm_to_pc
-
-MeanStars = pytest.importorskip("MeanStars").MeanStars
-
-
-@pytest.fixture(scope="module")
-def mamajek():
-    """The Pecaut & Mamajek (2013, ApJS 208, 9, Table 5; online version 2022.04.16)
-    mean dwarf sequence, as shipped by the meanstars package."""
-    ms = MeanStars()
-    rows = []
-    for spt, mv, bv in zip(ms.data["SpT"], ms.getFloatData("Mv"), ms.getFloatData("B-V")):
-        if spt[0] in "OBAFGKM" and spt.endswith("V") and np.isfinite(mv) and np.isfinite(bv):
-            rows.append((spt, mv, bv))
-    return pd.DataFrame(rows, columns=["spt", "mv", "bv"])
+from specpar.core.bands import BANDS, band_index
+from specpar.calib.tables import default_calibrations
+from specpar.calib.extinction import band_coefficients
+from specpar.core.distance import dm_to_pc
+CCM_TABLE3 = {"U": (0.365, 1.569), "B": (0.440, 1.337), "J": (1.25, 0.282), "H": (1.60, 0.190), "K": (2.2, 0.114)}
 
 
 def _dwarf_values(types):
@@ -34,30 +21,6 @@ def _dwarf_values(types):
     assert (parsed["lc_bright"] == "V").all()
     cal = default_calibrations().by_class["V"]
     return cal.evaluate(parsed["sptnum"].to_numpy())
-
-
-def test_dwarf_calibration_matches_meanstars_at_every_type(mamajek):
-    # Pecaut & Mamajek 2013 Table 5 via meanstars: B-V within 0.01 mag, M_V within 0.02 mag
-    vals = _dwarf_values(list(mamajek["spt"]))
-    iv, ib = band_index("V"), band_index("B")
-    mv, bv = vals.absmag[:, iv], vals.absmag[:, ib] - vals.absmag[:, iv]
-    assert len(mamajek) > 60
-    np.testing.assert_array_less(np.abs(mv - mamajek["mv"]), 0.02)
-    np.testing.assert_array_less(np.abs(bv - mamajek["bv"]), 0.01)
-
-
-def test_dwarf_interpolation_stays_between_neighbours(mamajek):
-    # half-subtypes not in the table lie between their tabulated neighbours (monotone PCHIP)
-    vals = _dwarf_values(["G2.5V", "K4.5V", "A1.5V"])
-    lo, hi = _dwarf_values(["G2V", "K4V", "A1V"]), _dwarf_values(["G3V", "K5V", "A2V"])
-    for k in (band_index("V"), band_index("B")):
-        a, b = lo.absmag[:, k], hi.absmag[:, k]
-        assert np.all((vals.absmag[:, k] >= np.minimum(a, b) - 1e-9) & (vals.absmag[:, k] <= np.maximum(a, b) + 1e-9))
-
-
-# Cardelli, Clayton & Mathis (1989, ApJ 345, 245), Table 3: A(lambda)/A(V) for R_V = 3.1
-# at the Johnson band wavelengths (micron) listed there.
-CCM_TABLE3 = {"U": (0.365, 1.569), "B": (0.440, 1.337), "J": (1.25, 0.282), "H": (1.60, 0.190), "K": (2.2, 0.114)}
 
 
 def test_dust_extinction_reproduces_ccm89_table3():
@@ -131,27 +94,6 @@ def test_red_clump_ks_absolute_magnitude(sptype):
     parsed = specpar.parse_sptypes([sptype])
     vals = default_calibrations().by_class["III"].evaluate(parsed["sptnum"].to_numpy())
     assert vals.absmag[0, band_index("Ks")] == pytest.approx(-1.61, abs=0.2)
-
-
-def test_classic_two_band_solution_with_published_dwarf_values(mamajek):
-    # A worked example built from the distance-modulus formula with Pecaut & Mamajek values
-    # (read from meanstars, not from specpar): G2V, V = 10.00, B - V = 0.95.
-    row = mamajek.set_index("spt").loc["G2V"]
-    V, BV = 10.00, 0.95
-    ebv = BV - row["bv"]                     # E(B-V) = (B-V) - (B-V)_0
-    av = 3.1 * ebv                           # A_V = R_V E(B-V)
-    dm = V - row["mv"] - av                  # m - M - A_V = 5 log10(d / 10 pc)
-    d = 10 ** (dm / 5 + 1)
-    out = specpar.estimate(pd.DataFrame({"sptype": ["G2V"], "B": [V + BV], "V": [V],
-                                         "e_B": [0.01], "e_V": [0.01]}), law="CCM89", rv=3.1)
-    assert out["ebv"][0] == pytest.approx(ebv, abs=1e-9)
-    assert out["av"][0] == pytest.approx(av, abs=1e-9)
-    assert out["dm"][0] == pytest.approx(dm, abs=1e-9)
-    assert out["dist_pc"][0] == pytest.approx(d, rel=1e-9)
-    assert out["plx_phot_mas"][0] == pytest.approx(1000 / d, rel=1e-9)
-    # the 16-84 interval brackets the median, asymmetric in distance
-    lo, hi = out["dist_lo_pc"][0], out["dist_hi_pc"][0]
-    assert lo < d < hi and (hi - d) > (d - lo)
 
 
 def test_output_metadata_states_assumptions():

@@ -25,9 +25,9 @@ import pandas as pd
 import pytest
 
 import specpar
-from specpar.bands import band_index
-from specpar.calibration import default_calibrations
-from specpar.extinction import band_coefficients
+from specpar.core.bands import band_index
+from specpar.calib.tables import default_calibrations
+from specpar.calib.extinction import band_coefficients
 
 MEASURED = tuple("ABCDEFGHIJK")
 BAD = 1 | 2 | 4 | 16 | 32 | 4096  # no class, unreadable, unsupported, peculiar, uncertain, no subtype

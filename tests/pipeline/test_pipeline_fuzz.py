@@ -14,8 +14,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from specpar import estimate, parse_sptypes
-from specpar.bands import BAND_NAMES
-from specpar.flags import Flag
+from specpar.core.bands import BAND_NAMES
+from specpar.core.flags import Flag
 
 # derandomize: the examples are a fixed function of the test (stochastic tests are seeded)
 FUZZ = settings(max_examples=120, deadline=None, derandomize=True, database=None,

@@ -13,12 +13,12 @@ import pandas as pd
 import pytest
 
 from specpar import estimate
-from specpar.calibration import default_calibrations
-from specpar.flags import Flag
-from specpar.numfmt import format_pm, format_pm_array
-from specpar.parallax import _draw, _plot_frame
+from specpar.calib.tables import default_calibrations
+from specpar.core.flags import Flag
+from specpar.core.numfmt import format_pm, format_pm_array
+from specpar.pipeline.parallax_plot import parallax_figure
 
-SAMPLES = Path(__file__).resolve().parent.parent / "samples"
+SAMPLES = Path(__file__).resolve().parents[2] / "samples"
 
 
 def _flag(out, bit):
@@ -122,7 +122,7 @@ def figure():
     t = pd.read_csv(SAMPLES / "survey_parallaxes.csv")
     out = estimate(t)
     assert (out["plx"] < 0).any()  # the sample has negative parallaxes: symlog axes
-    fig = _draw(_plot_frame(out), 3.0)
+    fig = parallax_figure(out, 3.0)
     FigureCanvasAgg(fig)
     fig.canvas.draw()
     return fig

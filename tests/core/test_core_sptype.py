@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from specpar import parse_sptypes
-from specpar.flags import Flag
+from specpar.core.flags import Flag
 
 
 @pytest.mark.parametrize("text,sptnum,classes", [

@@ -19,10 +19,12 @@ from astropy.table import Table
 from scipy import integrate, optimize, stats
 
 from specpar import estimate
-from specpar.calibration import default_calibrations
-from specpar.cli import main
-from specpar.flags import Flag
-from specpar.parallax import COLUMNS, distance_posterior, plot_parallax, tension_z
+from specpar.calib.tables import default_calibrations
+from specpar.cli.main import main
+from specpar.core.flags import Flag
+from specpar.pipeline.parallax import COLUMNS
+from specpar.pipeline.parallax_plot import plot_parallax
+from specpar.pipeline.tension import distance_posterior, tension_z
 
 L = 1350.0
 

@@ -10,9 +10,9 @@ import pandas as pd
 import pytest
 
 import specpar
-from specpar.flags import Flag
+from specpar.core.flags import Flag
 
-SAMPLES = Path(__file__).resolve().parent.parent / "samples"
+SAMPLES = Path(__file__).resolve().parents[2] / "samples"
 
 
 @pytest.mark.parametrize("name", ["survey.csv", "survey_parallaxes.csv", "pulsators.csv"])

@@ -9,8 +9,8 @@ import pandas as pd
 import pytest
 
 from specpar import estimate
-from specpar.cepheid import load_pl_calibration
-from specpar.flags import Flag
+from specpar.calib.cepheid_pl import load_pl_calibration
+from specpar.core.flags import Flag
 
 
 @pytest.mark.parametrize("name", ["V", "Ic", "Ks", "W_VI"])

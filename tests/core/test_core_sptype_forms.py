@@ -17,8 +17,8 @@ import pytest
 
 import specpar
 from specpar import parse_sptypes
-from specpar.flags import Flag
-from specpar.sptype import normalise
+from specpar.core.flags import Flag
+from specpar.core.sptype import normalise
 
 BAD = Flag.TYPE_UNREADABLE | Flag.TYPE_UNSUPPORTED
 

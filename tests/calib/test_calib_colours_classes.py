@@ -12,11 +12,10 @@ import pandas as pd
 import pytest
 
 import specpar
-from specpar.bands import CALIBRATION_COLOURS, band_index, chain_matrices
-from specpar.calibration import default_calibrations
-from specpar.extinction import DEFAULT_LAW, band_coefficients
-from specpar.flags import Flag
-
+from specpar.core.bands import CALIBRATION_COLOURS, band_index, chain_matrices
+from specpar.calib.tables import default_calibrations
+from specpar.calib.extinction import DEFAULT_LAW, band_coefficients
+from specpar.core.flags import Flag
 NONDWARF = ("IV", "III", "II", "Ib", "Iab", "Ia")
 MY_COLOURS = ("V-Rc", "V-Ic", "V-Ks", "J-H", "H-Ks", "G-V", "BP-RP", "G-RP")
 
@@ -191,41 +190,6 @@ def test_giant_2mass_colours_match_bessell_brett_1988(spt):
     assert c[CALIBRATION_COLOURS.index("V-Ks")] == pytest.approx(vks, abs=0.01)
     assert c[CALIBRATION_COLOURS.index("J-H")] == pytest.approx(jh, abs=0.01)
     assert c[CALIBRATION_COLOURS.index("H-Ks")] == pytest.approx(hks, abs=0.01)
-
-
-MeanStars = pytest.importorskip("MeanStars").MeanStars
-
-
-@pytest.fixture(scope="module")
-def dwarf_locus():
-    """(B-V, colour) pairs of the Pecaut & Mamajek (2013, ApJS 208, 9, Table 5; online
-    version 2022.04.16) mean dwarf sequence, read from the file the meanstars package ships."""
-    ms = MeanStars()
-    bv = ms.getFloatData("B-V")
-    out = {}
-    for ours, theirs in (("V-Ic", "V-Ic"), ("V-Ks", "V-Ks"), ("J-H", "J-H"), ("H-Ks", "H-Ks"),
-                         ("V-Rc", "V-Rc")):
-        y = ms.getFloatData(theirs)
-        spt = np.asarray(ms.data["SpT"])
-        ok = np.isfinite(bv) & np.isfinite(y) & np.char.endswith(spt.astype(str), "V") & (bv < 0.9)
-        order = np.argsort(bv[ok])
-        out[ours] = (bv[ok][order], y[ok][order])
-    return out
-
-
-@pytest.mark.parametrize("lc,spt", [("III", "B2"), ("III", "A0"), ("III", "F0"), ("III", "G0"),
-                                    ("Ia", "B1"), ("Ib", "A0"), ("Iab", "F5"), ("II", "A0")])
-def test_early_type_colours_follow_the_dwarf_colour_locus(lc, spt, dwarf_locus):
-    # colour-colour locus of Pecaut & Mamajek 2013 at the row's own (B-V)0, within 0.02 mag
-    # (linear vs monotone-cubic interpolation between the dwarf rows)
-    cal = default_calibrations().by_class[lc]
-    p = specpar.parse_sptypes([spt + lc]).iloc[0]
-    c = cal.evaluate(np.array([p["sptnum"]])).colours[0]
-    bv0 = c[CALIBRATION_COLOURS.index("B-V")]
-    for name, (x, y) in dwarf_locus.items():
-        if bv0 < x[0]:
-            continue
-        assert c[CALIBRATION_COLOURS.index(name)] == pytest.approx(np.interp(bv0, x, y), abs=0.02), name
 
 
 @pytest.mark.parametrize("spt", ["B0", "A0", "F0", "G0", "K0", "K3", "K5"])

@@ -1,0 +1,68 @@
+"""Per-star conditions of a cluster fit: one bit each, a machine name and a
+sentence, as for the rows of :func:`specpar.estimate` (:mod:`specpar.flags`).
+
+The cluster bits have their own values (they are written to files and kept
+stable); where a condition means the same as an estimate flag, its sentence is
+the estimate flag's sentence.
+"""
+from __future__ import annotations
+
+import enum
+
+import numpy as np
+
+from specpar.flags import SENTENCES as ROW_SENTENCES
+from specpar.flags import Flag
+
+__all__ = ["ClusterFlag", "SENTENCES", "BAD_ROWS", "flag_text"]
+
+
+class ClusterFlag(enum.IntFlag):
+    """Per-star conditions of a cluster fit (values are written to files)."""
+
+    PHOT_REJECTED = 1 << 0
+    ERROR_DEFAULTED = 1 << 1
+    NO_ORDINATE = 1 << 2
+    NO_COLOUR = 1 << 3
+    OUTSIDE_LOCUS = 1 << 4
+    MAG_LIMIT = 1 << 5
+    MEMBERSHIP_INVALID = 1 << 6
+    NOT_USED = 1 << 7
+    LIKELY_FIELD = 1 << 8
+    LIKELY_BINARY = 1 << 9
+    Q_EARLY_TYPE = 1 << 10
+    EVOLVED = 1 << 11
+    BEYOND_LOCUS_END = 1 << 12
+
+
+SENTENCES = {
+    # the same conditions as for estimate rows: the same sentences
+    ClusterFlag.PHOT_REJECTED: ROW_SENTENCES[Flag.PHOT_REJECTED],
+    ClusterFlag.ERROR_DEFAULTED: ROW_SENTENCES[Flag.ERROR_DEFAULTED],
+    ClusterFlag.NO_ORDINATE: "no usable magnitude in the ordinate band",
+    ClusterFlag.NO_COLOUR: "no usable colour (needs a second band)",
+    ClusterFlag.OUTSIDE_LOCUS: "colours outside the reach of the locus for any allowed E(B-V)",
+    ClusterFlag.MAG_LIMIT: "outside the magnitude limits of the fit (e.g. turn-off cut)",
+    ClusterFlag.MEMBERSHIP_INVALID: "membership probability missing or outside [0, 1]",
+    ClusterFlag.NOT_USED: "not used in the fit",
+    ClusterFlag.LIKELY_FIELD: "more likely a field star than a member (p_member < 0.5)",
+    ClusterFlag.LIKELY_BINARY: "member more likely an unresolved binary than single",
+    ClusterFlag.Q_EARLY_TYPE: "early-type member: E(B-V) from the Q method given in ebv_q",
+    ClusterFlag.EVOLVED: "brighter than the unresolved-binary sequence at its colour (subgiant, giant, "
+                         "turn-off star or blue straggler): kept out of the distance fit",
+    ClusterFlag.BEYOND_LOCUS_END: "fainter than the faint (red) end of the locus at the fitted distance: "
+                                  "outside the calibrated range, kept out of the distance fit",
+}
+
+#: Rows that cannot enter the fit at all.
+BAD_ROWS = (ClusterFlag.NO_ORDINATE | ClusterFlag.NO_COLOUR | ClusterFlag.MAG_LIMIT
+            | ClusterFlag.MEMBERSHIP_INVALID | ClusterFlag.OUTSIDE_LOCUS)
+
+
+def flag_text(flags):
+    """Machine names and readable sentences of the bits set, one string each per row
+    (built once per distinct value, as :func:`specpar.flags.describe_array` does)."""
+    uniq, inv = np.unique(flags, return_inverse=True)
+    codes = np.array([",".join(f.name for f in ClusterFlag if u & f) for u in uniq], dtype=object)
+    notes = np.array(["; ".join(SENTENCES[f] for f in ClusterFlag if u & f) for u in uniq], dtype=object)
+    return codes[inv.ravel()].astype(str), notes[inv.ravel()].astype(str)

@@ -18,7 +18,7 @@ from .flags import ClusterFlag
 from .likelihood import maximise, subset_model
 from .locus import (COARSE_STEP, DEFAULT_LOCUS_COLOUR_ZP, FEH_SLOPE, LOCUS_STEP, build_locus, clouds,
                     locus_zero_point, resolve_locus)
-from .options import FIT_OPTIONS, resolve_fit_options
+from .options import FIT_OPTIONS, OPTIONS_DOC, resolve_fit_options
 from .reddening import reddening_vectors
 from .start import coarse_start
 from .uncertainty import bootstrap, hessian_cov, systematics
@@ -57,69 +57,7 @@ def fit_cluster(table, **options):
         One row per star with magnitudes ``U B V Rc Ic J H Ks G BP RP`` and
         errors ``e_<band>``, and/or colours such as ``B-V`` (as for
         :func:`specpar.estimate`); no spectral types needed.
-    law : str
-        Extinction law (``CCM89``, ``O94``, ``F99``, ``F19``, ``G23``).
-    rv : float
-        Fixed R_V = A_V / E(B-V).
-    locus : {"young", "field"}, path or Calibration, optional
-        ``"young"`` (default): the empirical young main sequence shipped as
-        ``young_V.ecsv`` (Pleiades members' Gaia DR2 parallaxes, ~125 Myr,
-        [Fe/H] ~ 0), which the unevolved part of any cluster sequence follows;
-        ``"field"``: the mean field dwarf sequence (class V calibration, Pecaut &
-        Mamajek 2013), brighter at a given colour; or a locus table in the
-        calibration format. An optional ``mass`` column (Msun) is used for the
-        binary sequence; an optional meta ``zero_point_uncertainty`` (mag) enters
-        the error budget (default 0.1 mag).
-    bands : sequence of str, optional
-        Restrict the fit to these bands (default: all the input has).
-    magnitude : str, optional
-        Ordinate band (default the first of V, G, Ic, Rc, B, ... present).
-    membership : str, optional
-        Column of prior membership probabilities in [0, 1]; when given the field
-        fraction is not fitted.
-    columns : dict, optional
-        Our column names to yours, e.g. ``{"V": "Vmag"}``.
-    bright_limit, faint_limit : float
-        Use only stars with ordinate magnitude inside these limits (e.g.
-        ``bright_limit`` below the turn-off).
-    dm_range, ebv_range : (float, float)
-        Allowed ranges of distance modulus and E(B-V) (E(B-V) >= 0 by default; a
-        value at the lower bound is reported as an upper limit).
-    binaries : bool
-        Include the unresolved-binary sequence (``n_q`` mass ratios, flat in q).
-    width : float
-        Intrinsic width of the sequence, added in quadrature to every observable (mag).
-    u_reddening : {"empirical", "law"}
-        U-band reddening from E(U-B)/E(B-V) = 0.72 + 0.05 E(B-V) or from the law.
-    method : {"profile", "bootstrap"}
-        Uncertainties from the likelihood curvature (sandwich form) or from ``n_boot`` seeded resamples.
-    seed : int
-        Seed of the bootstrap.
-    default_error : float
-        Error (mag) assumed where a magnitude has none (flagged).
-    two_colour : bool
-        Also derive E(B-V) from the (U-B, B-V) diagram and the Q method when U, B, V exist.
-    field_model : {"dwarfs+broad", "broad"}
-        Colour density of the field component (see the module documentation).
-    feh, e_feh : float
-        Cluster metallicity [Fe/H] and its uncertainty (dex): the locus is made
-        brighter by ``FEH_SLOPE * feh`` mag at fixed colour; both the [Fe/H]
-        error and the slope's uncertainty enter the error budget.
-    ebv_prior : (float, float), optional
-        A known E(B-V) and its 1-sigma error, used as a Gaussian prior. Needed
-        with only two bands (one colour), where the reddening vector runs along
-        the sequence and distance and reddening cannot be told apart.
-    sigma_rv : float
-        Uncertainty of R_V propagated into the error budget (0 to leave it out).
-    exclude_evolved : bool
-        Keep stars brighter than the unresolved-binary sequence at their colour
-        (subgiants, giants, turn-off stars, blue stragglers) out of the distance
-        fit (flag ``EVOLVED``), then refit.
-    plx_zero_point, plx_systematic : float
-        With ``plx`` and ``e_plx`` columns (mas): zero point removed from the
-        parallaxes (default Gaia EDR3/DR3, -0.017 mas; use -0.029 for DR2) and
-        the systematic floor of the cluster mean parallax (mas).
-
+    {options}
     Returns
     -------
     ClusterResult
@@ -158,6 +96,9 @@ def fit_cluster(table, **options):
     opts["seed"] = int(v["seed"])
     opts["columns"] = v["columns"]
     return assemble_result(table, d, model, theta, ll, cov, boot, opts, loc, v["two_colour"])
+
+
+fit_cluster.__doc__ = fit_cluster.__doc__.replace("    {options}", OPTIONS_DOC)
 
 
 fit_cluster.__signature__ = inspect.Signature(

@@ -17,42 +17,33 @@ from specpar.flags import Flag
 __all__ = ["ClusterFlag", "SENTENCES", "BAD_ROWS", "flag_text"]
 
 
-class ClusterFlag(enum.IntFlag):
-    """Per-star conditions of a cluster fit (values are written to files)."""
+#: Every per-star condition of a cluster fit, in bit order (bit 0 first): the bit values are
+#: written to files, so a new condition goes at the end. Each comes with its sentence; the
+#: conditions that mean what an estimate flag means use that flag's sentence.
+_CONDITIONS = (
+    ("PHOT_REJECTED", ROW_SENTENCES[Flag.PHOT_REJECTED]),
+    ("ERROR_DEFAULTED", ROW_SENTENCES[Flag.ERROR_DEFAULTED]),
+    ("NO_ORDINATE", "no usable magnitude in the ordinate band"),
+    ("NO_COLOUR", "no usable colour (needs a second band)"),
+    ("OUTSIDE_LOCUS", "colours outside the reach of the locus for any allowed E(B-V)"),
+    ("MAG_LIMIT", "outside the magnitude limits of the fit (e.g. turn-off cut)"),
+    ("MEMBERSHIP_INVALID", "membership probability missing or outside [0, 1]"),
+    ("NOT_USED", "not used in the fit"),
+    ("LIKELY_FIELD", "more likely a field star than a member (p_member < 0.5)"),
+    ("LIKELY_BINARY", "member more likely an unresolved binary than single"),
+    ("Q_EARLY_TYPE", "early-type member: E(B-V) from the Q method given in ebv_q"),
+    ("EVOLVED", "brighter than the unresolved-binary sequence at its colour (subgiant, giant, "
+                "turn-off star or blue straggler): kept out of the distance fit"),
+    ("BEYOND_LOCUS_END", "fainter than the faint (red) end of the locus at the fitted distance: "
+                         "outside the calibrated range, kept out of the distance fit"),
+)
 
-    PHOT_REJECTED = 1 << 0
-    ERROR_DEFAULTED = 1 << 1
-    NO_ORDINATE = 1 << 2
-    NO_COLOUR = 1 << 3
-    OUTSIDE_LOCUS = 1 << 4
-    MAG_LIMIT = 1 << 5
-    MEMBERSHIP_INVALID = 1 << 6
-    NOT_USED = 1 << 7
-    LIKELY_FIELD = 1 << 8
-    LIKELY_BINARY = 1 << 9
-    Q_EARLY_TYPE = 1 << 10
-    EVOLVED = 1 << 11
-    BEYOND_LOCUS_END = 1 << 12
+ClusterFlag = enum.IntFlag("ClusterFlag", [(name, 1 << bit) for bit, (name, _) in enumerate(_CONDITIONS)],
+                           module=__name__)
+ClusterFlag.__doc__ = "Per-star conditions of a cluster fit (values are written to files)."
 
+SENTENCES = {ClusterFlag[name]: text for name, text in _CONDITIONS}
 
-SENTENCES = {
-    # the same conditions as for estimate rows: the same sentences
-    ClusterFlag.PHOT_REJECTED: ROW_SENTENCES[Flag.PHOT_REJECTED],
-    ClusterFlag.ERROR_DEFAULTED: ROW_SENTENCES[Flag.ERROR_DEFAULTED],
-    ClusterFlag.NO_ORDINATE: "no usable magnitude in the ordinate band",
-    ClusterFlag.NO_COLOUR: "no usable colour (needs a second band)",
-    ClusterFlag.OUTSIDE_LOCUS: "colours outside the reach of the locus for any allowed E(B-V)",
-    ClusterFlag.MAG_LIMIT: "outside the magnitude limits of the fit (e.g. turn-off cut)",
-    ClusterFlag.MEMBERSHIP_INVALID: "membership probability missing or outside [0, 1]",
-    ClusterFlag.NOT_USED: "not used in the fit",
-    ClusterFlag.LIKELY_FIELD: "more likely a field star than a member (p_member < 0.5)",
-    ClusterFlag.LIKELY_BINARY: "member more likely an unresolved binary than single",
-    ClusterFlag.Q_EARLY_TYPE: "early-type member: E(B-V) from the Q method given in ebv_q",
-    ClusterFlag.EVOLVED: "brighter than the unresolved-binary sequence at its colour (subgiant, giant, "
-                         "turn-off star or blue straggler): kept out of the distance fit",
-    ClusterFlag.BEYOND_LOCUS_END: "fainter than the faint (red) end of the locus at the fitted distance: "
-                                  "outside the calibrated range, kept out of the distance fit",
-}
 
 #: Rows that cannot enter the fit at all.
 BAD_ROWS = (ClusterFlag.NO_ORDINATE | ClusterFlag.NO_COLOUR | ClusterFlag.MAG_LIMIT

@@ -9,12 +9,9 @@ reddening-free to first order, the locus gives (B-V)_0 from Q, and the
 
 References
 ----------
-Johnson, H. L. & Morgan, W. W. 1953, ApJ 117, 313 (UBV system, Q parameter)
-(from memory).
-Hiltner, W. A. & Johnson, H. L. 1956, ApJ 124, 367 (reddening line in the
-(U-B, B-V) plane) (from memory).
-Johnson, H. L. 1958, Lowell Obs. Bull. 4, 37 ((B-V)_0 = 0.332 Q for early
-B stars) (from memory).
+Q index: Johnson & Morgan 1953, ApJ 117, 313; the curved reddening line: Hiltner &
+Johnson 1956, ApJ 124, 367; (B-V)_0 = 0.332 Q for early B stars: Johnson 1958,
+Lowell Obs. Bull. 4, 37 (all from memory).
 """
 from __future__ import annotations
 

@@ -134,3 +134,9 @@ from .twocolour import intrinsic_bv_from_q
 
 __all__ = ["fit_cluster", "ClusterResult", "ClusterFlag", "ClusterFitWarning", "simulate_cluster", "q_index",
            "intrinsic_bv_from_q", "ub_excess_ratio", "plot_cmd", "plot_two_colour"]
+
+# the public names say where users import them from (as specpar.fit_cluster.__module__ did)
+for _obj in (fit_cluster, simulate_cluster, ClusterResult, ClusterFitWarning, intrinsic_bv_from_q, q_index,
+             ub_excess_ratio, plot_cmd, plot_two_colour):
+    _obj.__module__ = __name__
+del _obj

@@ -15,9 +15,9 @@ __all__ = ["main", "build_parser"]
 
 #: Command modules of this package, in the order ``specpar --help`` lists them;
 #: each exposes ``register(subparsers)``.
-COMMANDS = ("estimate", "calibrations", "calibrate", "bench", "parallax")
+COMMANDS = ("estimate", "calibrations", "calibrate", "bench", "parallax", "cluster")
 #: Library modules that still register their own command (moved here as the layers are split).
-_LIBRARY_COMMANDS = ("cluster", "worked", "problems")
+_LIBRARY_COMMANDS = ("worked", "problems")
 
 DESCRIPTION = ("Distances to stars from MK spectral type and photometry (spectroscopic parallax): "
                "calibrated absolute magnitudes and intrinsic colours, colour excess, extinction, "

@@ -15,8 +15,11 @@ import pytest
 from astropy.table import Table
 
 from specpar import cluster as C
-from specpar.calibration import default_calibrations
-from specpar.cli import main
+from specpar.core.bands import BAND_NAMES, band_index
+from specpar.calib.tables import default_calibrations
+from specpar.cli.main import main
+from specpar.cluster.locus import build_locus, clouds, dwarf_masses
+from specpar.cluster.reddening import reddening_vectors
 
 TRUE_DM, TRUE_EBV = 10.5, 0.4
 
@@ -39,8 +42,8 @@ def test_reddening_line_slope_published():
     # Hiltner & Johnson 1956 (from memory): E(U-B)/E(B-V) = 0.72 + 0.05 E(B-V)
     assert C.ub_excess_ratio(0.0) == pytest.approx(0.72)
     assert C.ub_excess_ratio(1.0) == pytest.approx(0.77)
-    lin, quad = C._reddening_vectors("F99", 3.1, "empirical")
-    iu, ib = C.band_index("U"), C.band_index("B")
+    lin, quad = reddening_vectors("F99", 3.1, "empirical")
+    iu, ib = band_index("U"), band_index("B")
     for e in (0.2, 1.0, 2.0):
         e_ub = (lin[iu] - lin[ib]) * e + (quad[iu] - quad[ib]) * e ** 2
         assert e_ub / e == pytest.approx(0.72 + 0.05 * e, abs=1e-12)
@@ -71,10 +74,10 @@ def test_dwarf_masses_copied_from_meanstars():
     MeanStars = pytest.importorskip("MeanStars").MeanStars
     ms = MeanStars()
     ref = dict(zip(ms.data["SpT"], ms.getFloatData("Msun")))
-    from specpar.sptype import parse_sptypes
+    from specpar.core.sptype import parse_sptypes
     spts = [s for s in ref if s[0] in "OBAFGKM" and s.endswith("V") and np.isfinite(ref[s])]
     num = parse_sptypes(spts)["sptnum"].to_numpy(float)
-    table = dict(C._DWARF_MASS)
+    table = dict(zip(dwarf_masses()["sptnum"], dwarf_masses()["mass"]))
     for s, x in zip(spts, num):
         assert table[float(x)] == pytest.approx(ref[s], rel=1e-9), s
 
@@ -83,13 +86,13 @@ def test_binary_sequence_at_most_075_mag_brighter():
     # common practice: two identical stars give 2.5 log10(2) = 0.753 mag more light; a
     # companion of mass ratio q < 1 gives less, approaching it as q -> 1
     cal = default_calibrations().by_class["V"]
-    need = np.isin(C.BAND_NAMES, ["B", "V"])
-    loc = C._build_locus(cal, need)
-    L = np.zeros((2, len(C.BAND_NAMES)))
-    L[0, C.band_index("V")] = 1
-    L[1, C.band_index("B")] = 1
-    single, binary = C._clouds(loc, L, 0, 10.0, 50, 0.05)
-    gain = loc.at(binary.spt)[:, C.band_index("V")] - binary.m_ord
+    need = np.isin(BAND_NAMES, ["B", "V"])
+    loc = build_locus(cal, need)
+    L = np.zeros((2, len(BAND_NAMES)))
+    L[0, band_index("V")] = 1
+    L[1, band_index("B")] = 1
+    single, binary = clouds(loc, L, 0, 10.0, 50, 0.05)
+    gain = loc.at(binary.spt)[:, band_index("V")] - binary.m_ord
     assert gain.max() <= 2.5 * np.log10(2) + 1e-9 and gain.min() >= -1e-9
     assert np.median(gain[binary.q == binary.q.max()]) > 0.7
     assert np.median(gain[binary.q == binary.q.min()]) < 0.01

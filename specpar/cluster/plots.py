@@ -14,31 +14,26 @@ ApJ 124, 367 (reddening line, E(U-B)/E(B-V) = 0.72 + 0.05 E(B-V)) (from memory).
 """
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 
-__all__ = ["plot_cmd", "plot_two_colour"]
+from specpar.core.errors import InputError
+from specpar.io.figures import new_figure, save_figure
+
+from .reddening import ub_excess_ratio
+
+__all__ = ["plot_cmd", "plot_two_colour", "FIGURE_SIZE", "DPI"]
+
+#: Size (inches) and resolution (dots per inch) of the diagrams.
+FIGURE_SIZE = (6.0, 7.0)
+DPI = 150
 
 
 def _figure():
-    import matplotlib
-    matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
-    return plt.subplots(figsize=(6.0, 7.0), constrained_layout=True)
+    return new_figure(figsize=FIGURE_SIZE, constrained_layout=True)
 
 
 def _save(fig, path, inputs=(), overwrite=False):
-    from specpar.io.atomic import atomic_write
-    import matplotlib.pyplot as plt
-    ext = Path(path).suffix.lower()
-    try:
-        if ext not in (".png", ".pdf"):
-            raise ValueError(f"plot file {path} must end in .png or .pdf")
-        atomic_write(path, lambda tmp: fig.savefig(tmp, format=ext[1:], dpi=150), inputs=inputs,
-                     overwrite=overwrite, what="plot")
-    finally:
-        plt.close(fig)
+    save_figure(fig, path, dpi=DPI, inputs=inputs, overwrite=overwrite, what="plot")
 
 
 def plot_cmd(result, path, *, inputs=(), overwrite=False):
@@ -56,7 +51,7 @@ def plot_cmd(result, path, *, inputs=(), overwrite=False):
     """
     pdat = result.plot_data
     if pdat.get("colour") is None:
-        raise ValueError("no colour index can be formed from the bands fitted; no diagram drawn")
+        raise InputError("no colour index can be formed from the bands fitted; no diagram drawn")
     fig, ax = _figure()
     x, y, used = pdat["colour"], pdat["mag"], pdat["used"]
     ax.scatter(x[~used], y[~used], marker="x", s=10, c="0.6", lw=0.7, label="not used")
@@ -91,10 +86,9 @@ def plot_two_colour(result, path, *, inputs=(), overwrite=False):
     path : str or Path
         ``.png`` or ``.pdf``.
     """
-    from .cluster import ub_excess_ratio
     tc = result.plot_data.get("two_colour")
     if tc is None:
-        raise ValueError("the two-colour diagram needs U, B and V photometry (or U-B and B-V)")
+        raise InputError("the two-colour diagram needs U, B and V photometry (or U-B and B-V)")
     fig, ax = _figure()
     used = result.plot_data["used"]
     pm = result.plot_data["p_member"]

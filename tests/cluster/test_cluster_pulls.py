@@ -14,22 +14,24 @@ import numpy as np
 import pytest
 
 from specpar import cluster as C
+from specpar.cluster.locus import DEFAULT_LOCUS_COLOUR_ZP, FEH_SLOPE, locus_zero_point, resolve_locus
+from specpar.cluster.uncertainty import DEFAULT_SIGMA_RV, PHOT_ZP
 
 TRUE_DM, TRUE_EBV = 10.0, 0.3
 
 
 def _cluster(seed, bands):
     rng = np.random.default_rng(1000 + seed)
-    cal = C._resolve_locus(None)
+    cal = resolve_locus(None)
     feh = rng.normal(0.0, 0.1)  # the fit assumes [Fe/H] = 0 +- 0.1
-    offset = rng.normal(0.0, C._locus_zero_point(cal)) - C.FEH_SLOPE * feh
-    rv = rng.normal(3.1, C.DEFAULT_SIGMA_RV)
+    offset = rng.normal(0.0, locus_zero_point(cal)) - FEH_SLOPE * feh
+    rv = rng.normal(3.1, DEFAULT_SIGMA_RV)
     t = C.simulate_cluster(200, dm=TRUE_DM, ebv=TRUE_EBV, binary_fraction=0.3, field_fraction=0.2,
                            bands=bands, mag_range=(9.0, 18.0), rv=rv, locus_offset=offset,
                            n_giants=6, n_turnoff=8, n_stragglers=3, seed=seed)
-    colour_zp = C._locus_zero_point(cal, "colour_zero_point_uncertainty", C.DEFAULT_LOCUS_COLOUR_ZP)
+    colour_zp = locus_zero_point(cal, "colour_zero_point_uncertainty", DEFAULT_LOCUS_COLOUR_ZP)
     for b in bands:  # photometric zero points, and the locus colours relative to V
-        t[b] = t[b] + rng.normal(0.0, C.PHOT_ZP[b]) + (rng.normal(0.0, colour_zp) if b != "V" else 0.0)
+        t[b] = t[b] + rng.normal(0.0, PHOT_ZP[b]) + (rng.normal(0.0, colour_zp) if b != "V" else 0.0)
     return t, rng
 
 

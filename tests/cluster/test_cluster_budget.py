@@ -12,6 +12,8 @@ import numpy as np
 import pytest
 
 from specpar import cluster as C
+from specpar.cli_cluster import register
+from specpar.cluster.locus import E_FEH_SLOPE, FEH_SLOPE
 
 
 @pytest.fixture(scope="module")
@@ -34,8 +36,8 @@ def base(field):
 def test_metallicity_shifts_distance_by_published_slope(field, base):
     # a metal-rich locus is brighter by FEH_SLOPE * [Fe/H] at fixed colour, so dm grows by it
     r = _fit(field, feh=0.2)
-    assert r.dm - base.dm == pytest.approx(C.FEH_SLOPE * 0.2, abs=0.01)
-    assert r.budget["metallicity"][0] == pytest.approx(np.hypot(C.FEH_SLOPE * 0.1, C.E_FEH_SLOPE * 0.2))
+    assert r.dm - base.dm == pytest.approx(FEH_SLOPE * 0.2, abs=0.01)
+    assert r.budget["metallicity"][0] == pytest.approx(np.hypot(FEH_SLOPE * 0.1, E_FEH_SLOPE * 0.2))
 
 
 def test_total_error_is_statistical_plus_listed_terms(base):
@@ -97,7 +99,7 @@ def test_cli_options_are_keywords():
     import argparse
     import inspect
     sub = argparse.ArgumentParser().add_subparsers()
-    C.register_cli(sub)
+    register(sub)
     p = sub.choices["cluster"]
     kws = set(inspect.signature(C.fit_cluster).parameters)
     aliases = {"bootstrap": "method", "no_binaries": "binaries", "keep_evolved": "exclude_evolved",

@@ -9,6 +9,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .likelihood import FIELD_FRACTION_BOUNDS
+from specpar.core.coldocs import column_docs
 
 __all__ = ["GOF_LIMIT", "MEMBER_COLUMNS", "ClusterResult", "ClusterFitWarning"]
 
@@ -19,22 +20,7 @@ THREE_DECIMALS_FROM = 0.0095
 #: Systematic terms smaller than this (mag) round to 0.000 and are left out of the summary.
 SHOWN_TERM = 5e-4
 #: Per-star output columns: unit and description.
-MEMBER_COLUMNS = {
-    "used": ("", "star used in the fit"),
-    "p_member": ("", "posterior probability of cluster membership (single or binary)"),
-    "p_binary": ("", "posterior probability of being an unresolved binary member"),
-    "p_field": ("", "posterior probability of being a field star"),
-    "locus_sptnum": ("", "posterior mean position of the (primary) star on the locus, numeric type"),
-    "dmag_single": ("mag", "ordinate magnitude minus the fitted single-star sequence at the star's "
-                           "fitted locus position (negative: brighter, e.g. binaries)"),
-    "chi2_colour": ("", "chi-square of the star's colours against the reddened locus (closest point)"),
-    "q_index": ("mag", "reddening-free Q = (U-B) - 0.72 (B-V)"),
-    "ebv_q": ("mag", "E(B-V) of an early-type member from the Q method"),
-    "e_ebv_q": ("mag", "1-sigma photometric uncertainty of ebv_q"),
-    "flags": ("", "bit mask, see metadata 'flag_bits'"),
-    "flag_codes": ("", "names of the bits set in flags"),
-    "note": ("", "readable reasons for the flags"),
-}
+MEMBER_COLUMNS = column_docs(__package__, "member_columns.csv")
 
 
 @dataclass

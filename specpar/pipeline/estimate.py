@@ -21,6 +21,7 @@ from astropy.table import Column, Table
 
 from ..calib.extinction import LAWS, band_coefficients, coefficients_at
 from ..calib.tables import CalibrationSet, default_calibrations
+from ..core.coldocs import column_docs
 from ..core.about import VERSION
 from ..core.bands import BAND_NAMES, BV_INDEX, V_INDEX
 from ..core.distance import pc_to_plx_mas
@@ -41,39 +42,7 @@ __all__ = ["estimate", "run_estimate", "attach_results", "OUTPUT_COLUMNS", "SOUR
 SOURCES = (SpectralTypeSource(), CepheidSource())
 
 #: Output columns with units and descriptions (written into table metadata).
-OUTPUT_COLUMNS = {
-    "sptnum": ("", "numeric spectral type (O0=0, B0=10, ..., M0=60)"),
-    "e_sptnum": ("", "subtype uncertainty used, in subclasses"),
-    "lum_class": ("", "luminosity class(es) whose calibration was used"),
-    "mv": ("mag", "absolute V magnitude from the calibration"),
-    "e_mv": ("mag", "intrinsic scatter of M_V used (widened for blended classes)"),
-    "bv0": ("mag", "intrinsic (B-V)_0 from the calibration"),
-    "ebv": ("mag", "colour excess E(B-V) >= 0 (0 where the fit preferred a negative value, see ebv_upper)"),
-    "e_ebv": ("mag", "1-sigma uncertainty of E(B-V); at the bound 0, the root mean square of the "
-                     "likelihood truncated to E(B-V) >= 0"),
-    "ebv_upper": ("mag", "where E(B-V) is held at 0: 95 % upper limit from the likelihood truncated to "
-                         "E(B-V) >= 0; NaN elsewhere"),
-    "ebv_unbounded": ("mag", "E(B-V) of the fit without the bound E(B-V) >= 0 (negative values show a "
-                             "type/photometry mismatch)"),
-    "rv": ("", "R_V = A_V / E(B-V) used (fitted when R_V is free)"),
-    "e_rv": ("", "uncertainty of R_V used in the error budget"),
-    "av": ("mag", "V-band extinction A_V = R_V E(B-V)"),
-    "e_av": ("mag", "1-sigma uncertainty of A_V"),
-    "dm": ("mag", "true distance modulus m - M - A = 5 log10(d / 10 pc)"),
-    "e_dm": ("mag", "1-sigma uncertainty of the distance modulus"),
-    "dist_pc": ("pc", "distance, median of its distribution"),
-    "dist_lo_pc": ("pc", "distance, 16th percentile"),
-    "dist_hi_pc": ("pc", "distance, 84th percentile"),
-    "plx_phot_mas": ("mas", "photometric parallax 1000 / dist_pc"),
-    "e_plx_phot_mas": ("mas", "1-sigma uncertainty of the photometric parallax (first order in e_dm)"),
-    "chi2": ("", "chi-square of the fit over all bands"),
-    "dof": ("", "degrees of freedom of chi2"),
-    "n_obs": ("", "number of magnitudes and colours used"),
-    "flags": ("", "bit mask of conditions, see metadata 'flag_bits'"),
-    "flag_codes": ("", "names of the bits set in flags"),
-    "note": ("", "readable reasons for the flags"),
-    "period0_d": ("d", "fundamental-mode pulsation period used (first overtones converted)"),
-}
+OUTPUT_COLUMNS = column_docs(__package__, "estimate_columns.csv")
 
 
 def _metadata(opts, cals, obs_names):

@@ -46,6 +46,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from ..core.coldocs import column_docs
 from ..core.bands import BV_INDEX, V_INDEX
 from ..core.distance import dm_to_plx_mas, plx_mas_to_dm
 from ..core.flags import Flag
@@ -66,23 +67,7 @@ PLX_LIMIT_MAS = 1000.0
 #: few micro-arcseconds are beyond current catalogues (common practice; a heuristic).
 ARCSEC_ERROR_MAS = 0.003
 
-COLUMNS = {
-    "plx_corr_mas": ("mas", "parallax used: input plx minus the zero-point offset"),
-    "e_plx_corr_mas": ("mas", "parallax error used: input e_plx times the error scale"),
-    "plx_snr": ("", "plx_corr_mas / e_plx_corr_mas (below 1/0.175 = 5.7, 1/plx is a biased distance)"),
-    "plx_z": ("", "tension in unit-normal sigma: Phi^-1 of the probability of a parallax below plx_corr_mas "
-                  "given N(dm, e_dm) and e_plx_corr_mas; about (plx_corr_mas - plx_phot_mas) / "
-                  "sqrt(e_plx_corr_mas**2 + e_plx_phot_mas**2) when e_dm is small"),
-    "plx_diag": ("", "why parallax and spectral type disagree when |plx_z| is above the threshold: "
-                     "'+'-joined codes, see metadata 'parallax_diagnosis_codes'"),
-    "dist_plx_pc": ("pc", "distance from the parallax alone with the space-density prior, median"),
-    "dist_plx_lo_pc": ("pc", "distance from the parallax alone, 16th percentile"),
-    "dist_plx_hi_pc": ("pc", "distance from the parallax alone, 84th percentile"),
-    "dist_comb_pc": ("pc", "distance from parallax, distance modulus and prior together, median; "
-                           "withheld (NaN, flag PLX_COMBINED_WITHHELD) where |plx_z| is above the threshold"),
-    "dist_comb_lo_pc": ("pc", "combined distance, 16th percentile"),
-    "dist_comb_hi_pc": ("pc", "combined distance, 84th percentile"),
-}
+COLUMNS = column_docs(__package__, "parallax_columns.csv")
 
 #: Machine codes of ``plx_diag`` (several may be joined with '+').
 DIAG_CODES = {

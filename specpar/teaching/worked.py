@@ -45,13 +45,13 @@ import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
-from .bands import BAND_NAMES, BANDS, CALIBRATION_COLOURS, band_index
-from .calibration import CalibrationSet, default_calibrations
-from .extinction import rv_limits
-from .estimate import EstimateOptions, coefficients_at, prepare_observables, to_frame, estimate
-from .flags import Flag, SENTENCES
-from .tableio import atomic_write
-from .sptype import TEMPERATURE_CLASSES
+from specpar.bands import BAND_NAMES, BANDS, CALIBRATION_COLOURS, band_index
+from specpar.calibration import CalibrationSet, default_calibrations
+from specpar.extinction import rv_limits
+from specpar.estimate import EstimateOptions, coefficients_at, prepare_observables, to_frame, estimate
+from specpar.flags import Flag, SENTENCES
+from specpar.tableio import atomic_write
+from specpar.sptype import TEMPERATURE_CLASSES
 
 __all__ = ["Step", "FitRow", "WorkedStar", "WorkedSolution", "SummaryTable", "worked_solutions",
            "render_markdown", "render_html", "answer_key", "write_text", "write_worked",
@@ -637,7 +637,7 @@ def _period_step(r, i, lum):
     text = f"from the '{lum}' period-luminosity relations, not from a spectral type"
     if "period0_d" not in r.colnames or not np.isfinite(float(r["period0_d"][i])):
         return Step("sptnum", "Absolute magnitudes", text=text)
-    from .cepheid import load_pl_calibration
+    from specpar.cepheid import load_pl_calibration
     rel = load_pl_calibration().relations["V"]
     p0 = float(r["period0_d"][i])
     p_in = float(r["period_d"][i]) if "period_d" in r.colnames else p0
@@ -1149,7 +1149,7 @@ def _format_of(path, fmt):
 def write_worked(ws: WorkedSolution, path, fmt=None, *, inputs=(), overwrite=False, title="Worked solutions",
                  decimals=None, preface=(), summaries=()) -> None:
     """Write worked solutions as Markdown, HTML or a CSV answer key (atomically)."""
-    from .tableio import write_table
+    from specpar.tableio import write_table
     fmt = _format_of(path, fmt)
     if fmt == "csv":
         write_table(answer_key(ws, decimals=decimals), path, "csv", inputs=inputs, overwrite=overwrite)
@@ -1162,8 +1162,8 @@ def write_worked(ws: WorkedSolution, path, fmt=None, *, inputs=(), overwrite=Fal
 # ----------------------------------------------------------------------------- CLI
 
 def _cmd_worked(args) -> int:
-    from .cli import column_map
-    from .tableio import read_table
+    from specpar.columns import column_map
+    from specpar.tableio import read_table
     table = read_table(args.input, args.in_format, hdu=args.hdu)
     ws = worked_solutions(table, decimals=args.decimals, law=args.law, rv=args.rv, sigma_rv=args.sigma_rv,
                           fit_rv=args.fit_rv, default_error=args.default_error,
@@ -1177,8 +1177,8 @@ def _cmd_worked(args) -> int:
 
 def register_cli(sub) -> None:
     """Add ``specpar worked``."""
-    from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
-    from .tableio import FORMATS as TABLE_FORMATS
+    from specpar.extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
+    from specpar.tableio import FORMATS as TABLE_FORMATS
     p = sub.add_parser("worked", help="worked solutions / answer key for every star of a table",
                        description="Write every step of each star's distance (type read, calibration values "
                                    "and their sources, colour excess, extinction, distance modulus, distance in "

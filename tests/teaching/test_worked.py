@@ -16,9 +16,9 @@ from astropy.table import Table
 from specpar import estimate
 from specpar.cli import main
 from specpar.tableio import read_table
-from specpar.worked import answer_key, render_html, render_markdown, worked_solutions
+from specpar.teaching.worked import answer_key, render_html, render_markdown, worked_solutions
 
-SAMPLE = Path(__file__).resolve().parent.parent / "samples" / "survey.csv"
+SAMPLE = Path(__file__).resolve().parents[2] / "samples" / "survey.csv"
 
 # Invented stars covering the presentation paths: classic B,V; V with a B-V colour; a
 # two-magnitude pair without B; a multi-band fit; an intermediate class; one band only;
@@ -229,7 +229,7 @@ def test_markdown_and_csv_answer_key(tmp_path):
     assert md.count("\n## SPX-") == len(ROWS)
     assert "| V | 11.000 | 0.020 |" in md  # fit table of the multi-band star
     path = tmp_path / "key.csv"
-    from specpar.worked import write_worked
+    from specpar.teaching.worked import write_worked
     write_worked(ws, path)
     key = read_table(path)
     assert list(key["id"]) == [r[0] for r in ROWS]
@@ -398,11 +398,11 @@ def test_multiband_fit_shows_the_weighted_mean_hand_route():
     assert hand.value != star.step("dm").value
 
 
-@pytest.mark.filterwarnings("ignore::specpar.problems.SmallSeedWarning")
+@pytest.mark.filterwarnings("ignore::specpar.teaching.problems.SmallSeedWarning")
 @pytest.mark.parametrize("level", ["full", "simple"])
 def test_displayed_equations_reproduce_in_problem_set_keys(level):
     """Full keys (several bands, reddening, fits) and simple keys from several seeds."""
-    from specpar.problems import make_problem_set
+    from specpar.teaching.problems import make_problem_set
     total = 0
     for seed in (1, 2, 3, 20240917, 2 ** 100 + 7):
         ps = make_problem_set(seed=seed, n_stars=10, level=level)
@@ -452,7 +452,7 @@ def test_markdown_key_neutralises_markup_from_input_text():
 
 
 def test_tiny_errors_keep_significant_digits():
-    from specpar.worked import Step, _equation, _fmt_error
+    from specpar.teaching.worked import Step, _equation, _fmt_error
     assert _fmt_error(0.00031, "mag", 3) == "0.00031" and _fmt_error(0.0123, "mag", 3) == "0.012"
     assert _fmt_error(np.nan, "mag", 3) == "" and _fmt_error(0.0, "mag", 3) == ""
     st = Step("x", "x", lhs="x", value=1.0, error=0.0002)

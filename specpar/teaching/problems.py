@@ -52,11 +52,11 @@ import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
-from .bands import BAND_NAMES, BANDS, CALIBRATION_COLOURS, band_index, chain_matrices
-from .calibration import default_calibrations
-from .extinction import DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check_law
-from .sptype import DEFAULT_SUBTYPE_SIGMA, TEMPERATURE_CLASSES
-from .estimate import coefficients_at
+from specpar.bands import BAND_NAMES, BANDS, CALIBRATION_COLOURS, band_index, chain_matrices
+from specpar.calibration import default_calibrations
+from specpar.extinction import DEFAULT_LAW, DEFAULT_RV, LAWS, band_coefficients, check_law
+from specpar.sptype import DEFAULT_SUBTYPE_SIGMA, TEMPERATURE_CLASSES
+from specpar.estimate import coefficients_at
 from .worked import (_CSS, DEFAULT_DECIMALS, SummaryTable, WorkedSolution, _chain, _fmt, _html_table, _md_table,
                      _md_text, _fmt_error, _round_sig, _round_value, answer_key, render_html, render_markdown, worked_solutions, write_text)
 
@@ -573,7 +573,7 @@ def write_problem_set(ps: ProblemSet, out_dir, *, overwrite: bool = False, decim
     Nothing is written if any target exists and ``overwrite`` is false.
     Returns the paths written, by role.
     """
-    from .tableio import write_table
+    from specpar.tableio import write_table
     out_dir = Path(out_dir)
     if out_dir.exists() and not out_dir.is_dir():
         raise ValueError(f"{out_dir} exists and is not a folder; choose another --out-dir")

@@ -1,0 +1,1 @@
+"""Teaching: worked solutions (answer keys) and invented problem sets."""

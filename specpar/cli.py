@@ -178,7 +178,7 @@ def _cmd_bench(args):
 
 
 #: Modules that add their own sub-commands through ``register_cli(subparsers)``.
-_SUBCOMMAND_MODULES = ("parallax", "cluster", "teaching.worked", "teaching.problems")
+_SUBCOMMAND_MODULES = ("parallax", "cluster", "cli_worked", "cli_problems")
 
 
 def _register_optional(sub):

@@ -11,12 +11,12 @@ from specpar.bands import BAND_NAMES, band_index
 from specpar.calibration import default_calibrations
 from specpar.cli import main
 from specpar.extinction import band_coefficients
-from specpar.teaching.problems import make_problem_set, problem_files, write_problem_set
+from specpar.teaching import make_problem_set, problem_files, write_problem_set
 from specpar.tableio import read_table
 
 
 # the tests below pick small seeds on purpose (readable, reproducible); the warning has its own test
-pytestmark = pytest.mark.filterwarnings("ignore::specpar.teaching.problems.SmallSeedWarning")
+pytestmark = pytest.mark.filterwarnings("ignore::specpar.teaching.SmallSeedWarning")
 
 
 def _files(ps, folder):
@@ -193,17 +193,17 @@ def test_each_seed_a_student_tries_costs_key_stretching():
     """PBKDF2 (RFC 8018) between seed and generator: trying seeds is no longer a fraction of a second
     for thousands of them (the old label fell to a search over 10^5 seeds in well under a second)."""
     import time
-    from specpar.teaching.problems import _derive, _KDF_ITERATIONS
-    assert _KDF_ITERATIONS >= 100_000
+    from specpar.teaching import KDF_ITERATIONS, derive_seed
+    assert KDF_ITERATIONS >= 100_000
     t0 = time.perf_counter()
     for s in range(5):
-        _derive(s)
+        derive_seed(s)
     assert (time.perf_counter() - t0) / 5 > 0.005  # seconds per seed tried; about 0.06 s here
 
 
 def test_default_seed_has_enough_entropy_and_is_written_to_the_key_only(tmp_path):
     import warnings
-    from specpar.teaching.problems import SEED_BITS
+    from specpar.teaching import SEED_BITS
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # no small-seed warning for a drawn seed
         a = make_problem_set(n_stars=3)
@@ -222,7 +222,7 @@ def test_default_seed_has_enough_entropy_and_is_written_to_the_key_only(tmp_path
 
 
 def test_small_hand_picked_seed_warns(tmp_path, capsys):
-    from specpar.teaching.problems import SmallSeedWarning
+    from specpar.teaching import SmallSeedWarning
     with pytest.warns(SmallSeedWarning, match=r"seed 1234 has only 11 bits"):
         make_problem_set(seed=1234, n_stars=2)
     import warnings

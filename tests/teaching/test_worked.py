@@ -16,7 +16,7 @@ from astropy.table import Table
 from specpar import estimate
 from specpar.cli import main
 from specpar.tableio import read_table
-from specpar.teaching.worked import answer_key, render_html, render_markdown, worked_solutions
+from specpar.teaching import answer_key, render_html, render_markdown, worked_solutions
 
 SAMPLE = Path(__file__).resolve().parents[2] / "samples" / "survey.csv"
 
@@ -229,7 +229,7 @@ def test_markdown_and_csv_answer_key(tmp_path):
     assert md.count("\n## SPX-") == len(ROWS)
     assert "| V | 11.000 | 0.020 |" in md  # fit table of the multi-band star
     path = tmp_path / "key.csv"
-    from specpar.teaching.worked import write_worked
+    from specpar.teaching import write_worked
     write_worked(ws, path)
     key = read_table(path)
     assert list(key["id"]) == [r[0] for r in ROWS]
@@ -398,11 +398,11 @@ def test_multiband_fit_shows_the_weighted_mean_hand_route():
     assert hand.value != star.step("dm").value
 
 
-@pytest.mark.filterwarnings("ignore::specpar.teaching.problems.SmallSeedWarning")
+@pytest.mark.filterwarnings("ignore::specpar.teaching.SmallSeedWarning")
 @pytest.mark.parametrize("level", ["full", "simple"])
 def test_displayed_equations_reproduce_in_problem_set_keys(level):
     """Full keys (several bands, reddening, fits) and simple keys from several seeds."""
-    from specpar.teaching.problems import make_problem_set
+    from specpar.teaching import make_problem_set
     total = 0
     for seed in (1, 2, 3, 20240917, 2 ** 100 + 7):
         ps = make_problem_set(seed=seed, n_stars=10, level=level)
@@ -452,12 +452,12 @@ def test_markdown_key_neutralises_markup_from_input_text():
 
 
 def test_tiny_errors_keep_significant_digits():
-    from specpar.teaching.worked import Step, _equation, _fmt_error
-    assert _fmt_error(0.00031, "mag", 3) == "0.00031" and _fmt_error(0.0123, "mag", 3) == "0.012"
-    assert _fmt_error(np.nan, "mag", 3) == "" and _fmt_error(0.0, "mag", 3) == ""
+    from specpar.teaching import Step, equation, fmt_error
+    assert fmt_error(0.00031, "mag", 3) == "0.00031" and fmt_error(0.0123, "mag", 3) == "0.012"
+    assert fmt_error(np.nan, "mag", 3) == "" and fmt_error(0.0, "mag", 3) == ""
     st = Step("x", "x", lhs="x", value=1.0, error=0.0002)
-    assert _equation(st, 3) == "x = 1.000 ± 0.00020 mag"
-    assert _equation(Step("x", "x", lhs="x", value=1.0, error=np.nan), 3) == "x = 1.000 mag"
+    assert equation(st, 3) == "x = 1.000 ± 0.00020 mag"
+    assert equation(Step("x", "x", lhs="x", value=1.0, error=np.nan), 3) == "x = 1.000 mag"
 
 
 def test_no_nan_or_zero_errors_in_keys_of_the_samples():

@@ -27,6 +27,7 @@ __all__ = ["ResultColumns", "Context", "build_context", "type_name", "describe_r
 
 
 def type_name(sptnum: float) -> str:
+    """The MK temperature type of a numeric type (``25.0`` -> ``"A5"``)."""
     k = int(np.clip(sptnum // 10, 0, len(TEMPERATURE_CLASSES) - 1))
     return f"{TEMPERATURE_CLASSES[k]}{sptnum - 10 * k:g}"
 
@@ -81,6 +82,8 @@ class ResultColumns:
 
 @dataclass
 class Context:
+    """Everything the step builders read for a table: the result, calibrations, observables, colours per
+    class, extinction coefficients, method."""
     result: ResultColumns
     cals: CalibrationSet
     obs: object
@@ -110,6 +113,7 @@ def used_observables(ctx, i):
 
 
 def fit_rows(ctx, i, used):
+    """One :class:`FitRow` per observable the fit of row ``i`` used: value, model terms and residual."""
     r = ctx.result
     M = np.array([float(r[f"M_{b}"][i]) if f"M_{b}" in r.colnames else np.nan for b in BAND_NAMES])
     A = np.array([float(r[f"A_{b}"][i]) if f"A_{b}" in r.colnames else np.nan for b in BAND_NAMES])
@@ -136,6 +140,7 @@ def cls_of(ctx, i):
 
 
 def build_context(table, result, options) -> Context:
+    """The :class:`Context` of an estimate ``result`` of ``table`` under the estimate ``options``."""
     opts = EstimateOptions(**{k: v for k, v in options.items() if k != "calibrations"},
                            calibrations=tuple(options.get("calibrations") or ()))
     cals = CalibrationSet(opts.calibrations) if opts.calibrations else default_calibrations()

@@ -27,6 +27,8 @@ MAX_GUARD_DIGITS = 8
 
 
 def substitute(step: Step, decimals: int, extra: int = 0) -> str:
+    """The step's template with its numbers put in (``extra`` guard digits on computed operands;
+    negative operands in brackets)."""
     def repl(m):
         k = int(m[1])
         value, kind = step.numbers[k]
@@ -85,6 +87,7 @@ def band_chain(band: str):
 
 
 def colour_symbol(colour: str) -> str:
+    """Symbol of an intrinsic colour in the light markup: ``(B-V)_{0}``."""
     return f"({colour})_{{0}}"
 
 

@@ -13,6 +13,7 @@ __all__ = ["default_summary", "fit_header", "fit_cells", "answer_line", "flag_li
 
 
 def default_summary(ws, dec) -> SummaryTable:
+    """The answer-key summary table shown above the solutions (E(B-V), modulus, distance, flags)."""
     key = answer_key(ws, decimals=dec)
     rows = [[k["id"], k["sptype"], fmt(k["ebv"], "mag", dec), fmt(k["dm"], "mag", dec),
              fmt(k["dist_pc"], "pc", dec), fmt(k["dist_ly"], "ly", dec), k["flag_codes"] or "-"] for k in key]
@@ -20,6 +21,7 @@ def default_summary(ws, dec) -> SummaryTable:
 
 
 def fit_header():
+    """Column heads of the fit table of a multi-band solution."""
     return ["observable", "value", "σ", "M", "R = A/E(B-V)", "A", "m - M - A", "residual"]
 
 
@@ -36,6 +38,7 @@ def fit_cells(f: FitRow, dec):
 
 
 def answer_line(s: WorkedStar, dec) -> str:
+    """The star's answer in one line: distance with its 1-sigma range, in pc and ly."""
     if not s.solved:
         return "no distance"
     d = s.step("dist_pc")
@@ -45,4 +48,5 @@ def answer_line(s: WorkedStar, dec) -> str:
 
 
 def flag_lines(s: WorkedStar):
+    """One readable sentence per quality flag the star carries."""
     return [f"{f.name}: {SENTENCES[f]}" for f in Flag if s.flags & f]

@@ -28,6 +28,8 @@ WEIGHT_SIG = 3
 
 
 def distance_steps(ctx, i, dm_step):
+    """Steps from the distance modulus to the distance (pc, ly), its range, the error budget and the
+    photometric parallax."""
     r = ctx.result
     dm, e_dm = float(r["dm"][i]), float(r["e_dm"][i])
     d, lo, hi = (float(r[c][i]) for c in ("dist_pc", "dist_lo_pc", "dist_hi_pc"))
@@ -66,6 +68,7 @@ def distance_steps(ctx, i, dm_step):
 
 
 def budget_text(ctx, i):
+    """What the uncertainty of the distance modulus of row ``i`` includes, in words."""
     r = ctx.result
     used = used_observables(ctx, i)
     phot = ", ".join(f"σ({ctx.obs_names[k]}) = {fmt(ctx.obs.sigma[i, k], 'mag', 3)}" for k in used)

@@ -15,6 +15,7 @@ def _md_cell(text) -> str:
 
 
 def md_table(header, rows) -> list:
+    """A Markdown table (header cells take the light markup; cells escaped)."""
     lines = ["| " + " | ".join(_md_cell(markup(str(h), False)) for h in header) + " |",
              "|" + "|".join(" --- " for _ in header) + "|"]
     lines += ["| " + " | ".join(_md_cell(c) for c in row) + " |" for row in rows]

@@ -50,6 +50,7 @@ def calibration_steps(ctx, i, cls, colours_needed):
 
 
 def absmag_step(ctx, i, band):
+    """M in ``band`` from M_V and the calibration colours linking the band to V."""
     chain = band_chain(band)
     mv = float(ctx.result["mv"][i])
     terms = [ctx.colours[i, CALIBRATION_COLOURS.index(c)] for _, c in chain]
@@ -62,6 +63,7 @@ def absmag_step(ctx, i, band):
 
 
 def extinction_step(ctx, i, band, ebv_symbol="E(B-V)"):
+    """A in ``band`` = R_band E(B-V), with the law, R_V and whether R_V is a limit."""
     r = ctx.result
     ebv = float(r["ebv"][i])
     R = float(ctx.coef[i, band_index(band)])
@@ -132,6 +134,7 @@ def period_step(r, i, lum):
 
 
 def type_step(ctx, i, star, cls, lum):
+    """The spectral type as read (or the period-luminosity relation of a pulsator row)."""
     r = ctx.result
     sptnum = float(r["sptnum"][i])
     if lum not in ctx.per_class and cls[0] == cls[1]:  # e.g. a period-luminosity row
@@ -162,6 +165,7 @@ def lookup_steps(ctx, i, star, cls, fit, colour_known):
 
 
 def fit_step(star):
+    """The least-squares fit's model and its chi-square."""
     text = (f"model per band: m = M + A + (m-M)_{{0}} with A = R E(B-V); colours: c = c_{{0}} + E(c). "
             f"χ^{{2}} = {fmt(star.chi2, 'mag', 2)} for {star.dof} degree(s) of freedom")
     return Step("fit", "Least-squares fit of the distance modulus and E(B-V)", value=star.chi2, kind="mag", unit="",
@@ -181,6 +185,7 @@ def hand_check(ctx, i, used):
 
 
 def dm_direct(ctx, i, band):
+    """Distance modulus from one band: m - M - A."""
     r = ctx.result
     k = ctx.obs_names.index(band)
     m = float(ctx.obs.y[i, k])

@@ -18,7 +18,7 @@ from specpar.flags import Flag
 from .context import cls_of, used_observables
 from .equations import band_chain, band_modulus, substitute
 from .model import Step
-from .numbers import evaluate_display, fmt, markup, round_sig
+from .numbers import PHOT_ERROR_DECIMALS, SHORT_DECIMALS, evaluate_display, fmt, markup, round_sig
 from .steps import colour_excess_step, dm_direct, extinction_step, fit_step, hand_check, pm_text
 
 __all__ = ["distance_steps", "budget_text", "reddening_steps", "hand_mean_step", "WEIGHT_SIG"]
@@ -71,9 +71,9 @@ def budget_text(ctx, i):
     """What the uncertainty of the distance modulus of row ``i`` includes, in words."""
     r = ctx.result
     used = used_observables(ctx, i)
-    phot = ", ".join(f"σ({ctx.obs_names[k]}) = {fmt(ctx.obs.sigma[i, k], 'mag', 3)}" for k in used)
+    phot = ", ".join(f"σ({ctx.obs_names[k]}) = {fmt(ctx.obs.sigma[i, k], 'mag', PHOT_ERROR_DECIMALS)}" for k in used)
     parts = [f"photometric errors ({phot} mag)",
-             f"intrinsic scatter of M_V ({fmt(float(r['e_mv'][i]), 'mag', 2)} mag)"]
+             f"intrinsic scatter of M_V ({fmt(float(r['e_mv'][i]), 'mag', SHORT_DECIMALS)} mag)"]
     if any(ctx.obs.L[k, band_index("V")] != 1 or np.count_nonzero(ctx.obs.L[k]) > 1 for k in used):
         parts.append("intrinsic-colour scatter of the calibration")
     if str(r["lum_class"][i]).split("-")[0] in ctx.per_class:  # not for period-luminosity rows

@@ -17,13 +17,18 @@ import re
 import numpy as np
 
 __all__ = ["round_sig", "fmt", "round_value", "fmt_error", "fmt_operand", "markup", "md_text",
-           "evaluate_display", "DISTANCE_KINDS", "EXACT_RTOL", "ERROR_SIG"]
+           "evaluate_display", "DISTANCE_KINDS", "EXACT_RTOL", "ERROR_SIG",
+           "PHOT_ERROR_DECIMALS", "SHORT_DECIMALS"]
 
 #: Display kinds shown to significant figures rather than to a number of decimals.
 DISTANCE_KINDS = ("pc", "ly", "mas")
 #: Relative tolerance within which an operand counts as exact at the displayed precision
 #: (far below any displayed digit; common practice for float comparison).
 EXACT_RTOL = 1e-9
+#: Decimals of a photometric error quoted in an error budget (0.001 mag; common practice).
+PHOT_ERROR_DECIMALS = 3
+#: Decimals of a calibration scatter and of a chi-square in the text (common practice).
+SHORT_DECIMALS = 2
 #: Significant figures of an error that would round to zero at the displayed decimals
 #: (common practice: quote an uncertainty to one or two significant figures).
 ERROR_SIG = 2

@@ -34,10 +34,12 @@ from .options import PROBLEM_OPTIONS
 from .seeds import derive_seed, fresh_seed, warn_if_small
 from .solutions import answer_key, worked_solutions
 
-__all__ = ["ProblemSet", "make_problem_set", "ERROR_SIG_FIGURES", "Z_DECIMALS"]
+__all__ = ["ProblemSet", "make_problem_set", "ERROR_SIG_FIGURES", "SPTNUM_DECIMALS", "Z_DECIMALS"]
 
 #: Significant figures of the photometric error printed in the sheet's e_ columns (common practice).
 ERROR_SIG_FIGURES = 3
+#: Decimals of the true numeric type in the truth table (a thousandth of a subclass; common practice).
+SPTNUM_DECIMALS = 3
 #: Decimals of z = ((m-M)_solved - (m-M)_true) / sigma in the key (common practice).
 Z_DECIMALS = 2
 _D = PROBLEM_OPTIONS.defaults()
@@ -88,7 +90,7 @@ def _tables(s, draw, tag):
             sheet[f"e_{b}"].unit = "mag"
     truth = Table()
     truth["id"] = ids
-    truth["true_sptnum"] = np.round(draw["true_spt"], 3)
+    truth["true_sptnum"] = np.round(draw["true_spt"], SPTNUM_DECIMALS)
     truth["true_M_V"] = draw["absmag"][:, 0]
     truth["true_bv0"] = draw["bv0"]
     truth["true_ebv"] = draw["ebv"]

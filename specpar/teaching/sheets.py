@@ -19,16 +19,14 @@ from specpar.tableio import write_table
 from .draw import SHEET_DECIMALS
 from .equations import band_chain
 from .model import SummaryTable
-from .numbers import fmt, fmt_error, md_text
+from .numbers import SHORT_DECIMALS, fmt, fmt_error, md_text
 from .output import write_text
 from .problems import ProblemSet, Z_DECIMALS
 from .render_html import html_page, html_table, render_html
 from .render_md import md_table, render_markdown
 
-__all__ = ["problem_files", "write_problem_set", "SCATTER_DECIMALS", "COEF_DECIMALS"]
+__all__ = ["problem_files", "write_problem_set", "COEF_DECIMALS"]
 
-#: Decimals of the calibration's scatter sigma(M_V) on the sheet (common practice).
-SCATTER_DECIMALS = 2
 #: Decimals of the coefficients A/E(B-V) on the sheet (common practice).
 COEF_DECIMALS = 4
 
@@ -75,7 +73,7 @@ def _sheet_tables(ps):
         t = cals.by_class[lc].table
         r = list(np.asarray(t["sptype"], dtype=str)).index(name)
         rows.append((float(t["sptnum"][r]), lc, [name, lc, fmt(t["M_V"][r], "mag", dec),
-                                                  fmt(t["sig_M_V"][r], "mag", SCATTER_DECIMALS)]
+                                                  fmt(t["sig_M_V"][r], "mag", SHORT_DECIMALS)]
                      + [fmt(t[c][r], "mag", dec) for c in colours]))
     order = {lc: k for k, lc in enumerate(cals.by_class)}
     rows = [r[2] for r in sorted(rows, key=lambda r: (order[r[1]], r[0]))]

@@ -16,7 +16,7 @@ from specpar.extinction import rv_limits
 from .context import describe_rows, type_name
 from .equations import band_chain, colour_symbol
 from .model import Step
-from .numbers import fmt
+from .numbers import SHORT_DECIMALS, fmt
 
 __all__ = ["calibration_steps", "absmag_step", "extinction_step", "colour_excess_step", "pm_text",
            "period_step", "type_step", "lookup_steps", "fit_step", "hand_check", "dm_direct"]
@@ -167,7 +167,7 @@ def lookup_steps(ctx, i, star, cls, fit, colour_known):
 def fit_step(star):
     """The least-squares fit's model and its chi-square."""
     text = (f"model per band: m = M + A + (m-M)_{{0}} with A = R E(B-V); colours: c = c_{{0}} + E(c). "
-            f"χ^{{2}} = {fmt(star.chi2, 'mag', 2)} for {star.dof} degree(s) of freedom")
+            f"χ^{{2}} = {fmt(star.chi2, 'mag', SHORT_DECIMALS)} for {star.dof} degree(s) of freedom")
     return Step("fit", "Least-squares fit of the distance modulus and E(B-V)", value=star.chi2, kind="mag", unit="",
                 text=text)
 

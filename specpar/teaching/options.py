@@ -36,6 +36,9 @@ MAX_DECIMALS = 10
 DOCUMENT_FORMATS = {"md": (".md", ".markdown"), "html": (".html", ".htm"), "csv": (".csv",)}
 
 _EST = EstimateOptions()
+#: The extinction law and R_V, offered by both commands.
+_LAW = Option("law", DEFAULT_LAW, f"extinction law (default {DEFAULT_LAW})", kind=str, choices=tuple(LAWS))
+_RV = Option("rv", DEFAULT_RV, f"R_V (default {DEFAULT_RV})")
 
 
 @dataclass(frozen=True)
@@ -61,8 +64,8 @@ WORKED_OPTIONS = OptionSet(
     Option("hdu", None, "FITS: the table HDU to read when the file holds several (VOTable: table index or ID)",
            kind=str, metavar="N|NAME"),
     Option("col", [], "map a column name (repeatable)", kind=list, metavar="OURS=YOURS"),
-    Option("law", DEFAULT_LAW, f"extinction law (default {DEFAULT_LAW})", kind=str, choices=tuple(LAWS)),
-    Option("rv", DEFAULT_RV, f"R_V (default {DEFAULT_RV})", unit=""),
+    _LAW,
+    _RV,
     Option("sigma_rv", _EST.sigma_rv, f"uncertainty of R_V (default {_EST.sigma_rv})"),
     Option("fit_rv", _EST.fit_rv, "fit R_V per star where the bands allow", kind=bool),
     Option("default_error", _EST.default_error,
@@ -89,7 +92,7 @@ PROBLEM_OPTIONS = OptionSet(
     Option("error_mag", None, "photometric noise, 1 sigma (default 0.02)", flag="--error", metavar="MAG"),
     SpreadOption("v_range", None, "apparent V magnitudes allowed on the sheet (default 3 14 simple, 4 16 full)",
                  nargs=2, metavar=("BRIGHT", "FAINT")),
-    Option("law", DEFAULT_LAW, f"extinction law (default {DEFAULT_LAW})", kind=str, choices=tuple(LAWS)),
-    Option("rv", DEFAULT_RV, f"R_V (default {DEFAULT_RV})"),
+    _LAW,
+    _RV,
     Option("decimals", DEFAULT_DECIMALS, f"decimals shown in the key (default {DEFAULT_DECIMALS})", kind=int),
 )

@@ -1,14 +1,13 @@
 """specpar: distances to stars from MK spectral type and photometry
 (spectroscopic parallax), with extinction, error propagation and flags."""
 from .core.about import VERSION as __version__
-
-from specpar.core.sptype import parse_sptypes # noqa: E402
-from specpar.calib.tables import CalibrationSet, load_calibration, default_calibrations # noqa: E402
-from specpar.calib.extinction import band_coefficients, LAWS # noqa: E402
-from specpar.pipeline.estimate import estimate # noqa: E402
-from specpar.pipeline.options import EstimateOptions
-from .batch.stream import estimate_file  # noqa: E402
-from .calfit import calibrate, write_calibrations, CalibrationFit  # noqa: E402
+from .core.sptype import parse_sptypes
+from .calib.tables import CalibrationSet, load_calibration, default_calibrations
+from .calib.extinction import band_coefficients, LAWS
+from .pipeline.estimate import estimate
+from .pipeline.options import EstimateOptions
+from .batch.stream import estimate_file
+from .calfit import calibrate, write_calibrations, CalibrationFit
 
 # Cluster fitting loads scipy.optimize / scipy.ndimage; it is imported on first use
 # so that ``import specpar`` (and the estimate command) start faster.

@@ -11,7 +11,7 @@ Two entry points:
 Every worker runs the same per-block function as a single process
 (:func:`specpar.batch.blocks.estimate_frame`) with the same options, and every
 row's result depends only on that row and the options (Monte Carlo draws are
-keyed on the row's content, :mod:`specpar.mcdraws`), so the results equal the
+keyed on the row's content, :mod:`specpar.core.mcdraws`), so the results equal the
 single-process run bit for bit. A failed piece is retried once; if it fails
 again the run stops with the piece's name and leaves no output under the
 final name.

@@ -35,7 +35,7 @@ def read_bsc5(path) -> Table:
         s = raw.decode("latin-1").rstrip("\r")
         if len(s) < 107 or not s[0:4].strip():
             continue
-        ra_s, de_s = s[75:83], s[83:90]
+        ra_s = s[75:83]
         if not ra_s.strip():  # the few non-stellar entries have no position
             continue
         ra = 15.0 * (int(s[75:77]) + int(s[77:79]) / 60.0 + float(s[79:83]) / 3600.0)

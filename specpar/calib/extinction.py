@@ -94,7 +94,7 @@ def band_coefficients(law: str = DEFAULT_LAW, rv=DEFAULT_RV) -> np.ndarray:
     Returns
     -------
     ndarray, shape (n_bands,) or (n_rv, n_bands)
-        Ordered as :data:`specpar.bands.BANDS`.
+        Ordered as :data:`specpar.core.bands.BANDS`.
     """
     rv_arr = np.asarray(rv, dtype=float)
     rows = np.array([_coefficients_scalar(law, float(r)) for r in rv_arr.ravel()])

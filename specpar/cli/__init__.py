@@ -6,7 +6,6 @@ the Python API also takes are built from the library's declarations
 :class:`specpar.core.errors.InputError` (bad user input) is turned into a
 one-line message; anything else is a bug and keeps its traceback.
 """
-from .common import column_map  # noqa: F401  (temporary: two library modules still import it from here)
 from .main import build_parser, main
 
 __all__ = ["main", "build_parser"]

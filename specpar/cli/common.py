@@ -18,5 +18,5 @@ class Parser(argparse.ArgumentParser):
 
 
 def column_map(pairs):
-    """``--col OURS=YOURS`` pairs to a mapping (see :func:`specpar.columns.column_map`)."""
+    """``--col OURS=YOURS`` pairs to a mapping (see :func:`specpar.io.columns.column_map`)."""
     return _column_map(pairs)

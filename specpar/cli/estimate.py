@@ -1,5 +1,5 @@
 """``specpar estimate``: the command line of :func:`specpar.estimate` (through
-:func:`specpar.stream.estimate_file`). The estimate options are made from their
+:func:`specpar.batch.stream.estimate_file`). The estimate options are made from their
 declarations in :mod:`specpar.pipeline.options`; ``--mc N`` (method and draws),
 ``--col`` (column mapping) and the file and block options are this command's own."""
 from __future__ import annotations

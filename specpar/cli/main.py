@@ -15,9 +15,7 @@ __all__ = ["main", "build_parser"]
 
 #: Command modules of this package, in the order ``specpar --help`` lists them;
 #: each exposes ``register(subparsers)``.
-COMMANDS = ("estimate", "calibrations", "calibrate", "bench", "parallax", "cluster")
-#: Library modules that still register their own command (moved here as the layers are split).
-_LIBRARY_COMMANDS = ("worked", "problems")
+COMMANDS = ("estimate", "calibrations", "calibrate", "bench", "parallax", "cluster", "worked", "problems")
 
 DESCRIPTION = ("Distances to stars from MK spectral type and photometry (spectroscopic parallax): "
                "calibrated absolute magnitudes and intrinsic colours, colour excess, extinction, "
@@ -31,8 +29,6 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=Parser)
     for name in COMMANDS:
         importlib.import_module(f"{__package__}.{name}").register(sub)
-    for name in _LIBRARY_COMMANDS:
-        importlib.import_module(f"specpar.{name}").register_cli(sub)
     return parser
 
 

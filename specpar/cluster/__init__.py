@@ -46,7 +46,7 @@ fainter than the locus' red end (``BEYOND_LOCUS_END``), and the fit is repeated;
 allowed E(B-V) are set aside before fitting (flag ``OUTSIDE_LOCUS``).
 
 Reddening: ``A_band = R_band E(B-V)`` from the chosen law at fixed R_V
-(:func:`specpar.extinction.band_coefficients`), except that for U the
+(:func:`specpar.calib.extinction.band_coefficients`), except that for U the
 empirical two-colour slope E(U-B)/E(B-V) = 0.72 + 0.05 E(B-V) is used
 (``u_reddening="empirical"``, the default), which carries the curvature that
 the broad U band gives.

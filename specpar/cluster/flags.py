@@ -1,5 +1,5 @@
 """Per-star conditions of a cluster fit: one bit each, a machine name and a
-sentence, as for the rows of :func:`specpar.estimate` (:mod:`specpar.flags`).
+sentence, as for the rows of :func:`specpar.estimate` (:mod:`specpar.core.flags`).
 
 The cluster bits have their own values (they are written to files and kept
 stable); where a condition means the same as an estimate flag, its sentence is
@@ -52,7 +52,7 @@ BAD_ROWS = (ClusterFlag.NO_ORDINATE | ClusterFlag.NO_COLOUR | ClusterFlag.MAG_LI
 
 def flag_text(flags):
     """Machine names and readable sentences of the bits set, one string each per row
-    (built once per distinct value, as :func:`specpar.flags.describe_array` does)."""
+    (built once per distinct value)."""
     uniq, inv = np.unique(flags, return_inverse=True)
     codes = np.array([",".join(f.name for f in ClusterFlag if u & f) for u in uniq], dtype=object)
     notes = np.array(["; ".join(SENTENCES[f] for f in ClusterFlag if u & f) for u in uniq], dtype=object)

@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import enum
 
-import numpy as np
 
 __all__ = ["Flag", "describe", "flag_names"]
 
@@ -89,10 +88,3 @@ def describe(value: int) -> str:
     """Readable sentence list for the bits set in ``value``."""
     return "; ".join(SENTENCES[f] for f in Flag if value & f)
 
-
-def describe_array(values: np.ndarray) -> np.ndarray:
-    """Vectorised :func:`describe`: one sentence string per row, built per distinct value."""
-    values = np.asarray(values, dtype=np.int64)
-    uniq, inverse = np.unique(values, return_inverse=True)
-    texts = np.array([describe(int(v)) for v in uniq], dtype=object)
-    return texts[inverse.ravel()]

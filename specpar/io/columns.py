@@ -1,7 +1,7 @@
 """Which input column is which: explicit mappings (``--col OURS=YOURS``) and
 the spellings catalogues commonly use, recognised without asking.
 
-:func:`resolve_columns` is applied by :func:`specpar.estimate.prepare_observables`,
+:func:`resolve_columns` is applied by :func:`specpar.pipeline.observables.prepare_observables`,
 so ``estimate``, ``fit_cluster`` and the worked solutions read columns the same
 way. Every mapping is checked before any computing: unknown targets, names not
 in the input, two columns ending up with one name, one column claimed twice,

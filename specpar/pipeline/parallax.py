@@ -12,7 +12,7 @@ in milliarcseconds, every row also gets:
   ``(plx - plx_phot) / sqrt(e_plx**2 + e_plx_phot**2)`` when the photometric
   parallax is nearly Gaussian, without that formula's skew when it is not
   (see :func:`tension_z`). ``|plx_z|`` above the threshold sets
-  :attr:`~specpar.flags.Flag.PLX_TENSION`;
+  :attr:`~specpar.core.flags.Flag.PLX_TENSION`;
 * for rows in tension, a diagnosis (``plx_diag``, codes in :data:`DIAG_CODES`)
   and a sentence with the numbers in the row's note: the luminosity class whose
   calibration fits the parallax, the light an unresolved companion would have

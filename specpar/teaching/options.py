@@ -1,0 +1,98 @@
+"""Options of ``specpar worked`` and ``specpar problems``, each declared once.
+
+The Python functions take their defaults from these declarations (e.g.
+``make_problem_set(n_stars=PROBLEM_OPTIONS["n_stars"].default)``) and the command line builds
+its arguments from them (:meth:`specpar.core.options.OptionSet.add_arguments`), so a default is
+written in one place. Values are checked by the functions themselves (their messages name the
+Python argument and the valid range).
+
+To add an option: declare it here (name = the Python keyword, ``flag`` = the command-line
+spelling if it differs), give the Python function the keyword with the declared default, and the
+command line gets it in the same order as declared.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from specpar.core.bands import BAND_NAMES
+from specpar.core.options import Option, OptionSet
+from specpar.pipeline.options import EstimateOptions
+from specpar.calib.extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
+from specpar.io.formats import FORMATS as TABLE_FORMATS
+
+from .levels import LEVELS
+from .seeds import SEED_BITS, SMALL_SEED_BITS
+
+__all__ = ["DEFAULT_DECIMALS", "MAX_DECIMALS", "DOCUMENT_FORMATS", "SpreadOption",
+           "WORKED_OPTIONS", "PROBLEM_OPTIONS"]
+
+#: Decimals shown for magnitudes by default (0.001 mag: the precision of most published photometry;
+#: common practice).
+DEFAULT_DECIMALS = 3
+#: Most decimals a key may show (beyond the precision of any magnitude; common practice).
+MAX_DECIMALS = 10
+#: Output formats of a worked solution, by name and file extension (documents, and the CSV key).
+DOCUMENT_FORMATS = {"md": (".md", ".markdown"), "html": (".html", ".htm"), "csv": (".csv",)}
+
+_EST = EstimateOptions()
+#: The extinction law and R_V, offered by both commands.
+_LAW = Option("law", DEFAULT_LAW, f"extinction law (default {DEFAULT_LAW})", kind=str, choices=tuple(LAWS))
+_RV = Option("rv", DEFAULT_RV, f"R_V (default {DEFAULT_RV})")
+
+
+@dataclass(frozen=True)
+class SpreadOption(Option):
+    """An :class:`~specpar.core.options.Option` whose command-line value is several words
+    (``nargs``: ``"+"`` or a count), e.g. ``--types G K`` or ``--dist-range 50 2000``."""
+
+    nargs: Any = None
+
+    def add_argument(self, parser) -> None:
+        parser.add_argument(self.cli_flag, dest=self.name, nargs=self.nargs, type=self.kind,
+                            metavar=self.metavar, help=self.help)
+
+
+WORKED_OPTIONS = OptionSet(
+    Option("format", None, "output format if the extension does not tell", kind=str,
+           choices=tuple(DOCUMENT_FORMATS)),
+    Option("decimals", DEFAULT_DECIMALS, f"decimals shown for magnitudes (default {DEFAULT_DECIMALS}); distances "
+           "get one more significant figure than this", kind=int),
+    Option("title", None, "page title", kind=str),
+    Option("in_format", None, "input format if the extension does not tell", kind=str,
+           choices=tuple(TABLE_FORMATS)),
+    Option("hdu", None, "FITS: the table HDU to read when the file holds several (VOTable: table index or ID)",
+           kind=str, metavar="N|NAME"),
+    Option("col", [], "map a column name (repeatable)", kind=list, metavar="OURS=YOURS"),
+    _LAW,
+    _RV,
+    Option("sigma_rv", _EST.sigma_rv, f"uncertainty of R_V (default {_EST.sigma_rv})"),
+    Option("fit_rv", _EST.fit_rv, "fit R_V per star where the bands allow", kind=bool),
+    Option("default_error", _EST.default_error,
+           f"error in mag assumed where a magnitude has none (default {_EST.default_error})", unit="mag"),
+    Option("calibration", [], "your own calibration table (ECSV), replacing the shipped one of its class",
+           kind=list, metavar="FILE"),
+    Option("overwrite", False, "replace the output file if it exists", kind=bool),
+)
+
+PROBLEM_OPTIONS = OptionSet(
+    Option("seed", None, f"seed, to make the same set again (default: a fresh {SEED_BITS}-bit seed, written to "
+           f"the key only); seeds under {SMALL_SEED_BITS} bits can be found by students and get a warning",
+           kind=int),
+    Option("n_stars", 10, "number of stars (default 10)", kind=int, flag="--n", metavar="N"),
+    Option("level", "full", "simple: V only, class V, no extinction; full: several bands, reddening, errors "
+           "(default full)", kind=str, choices=tuple(LEVELS)),
+    SpreadOption("types", None, "temperature classes (e.g. G K) or types (e.g. G2)", kind=str, nargs="+",
+                 metavar="T"),
+    SpreadOption("classes", None, "luminosity classes (e.g. V III)", kind=str, nargs="+", metavar="LC"),
+    SpreadOption("bands", None, f"bands on the sheet, among {' '.join(BAND_NAMES)}", kind=str, nargs="+", metavar="BAND"),
+    SpreadOption("dist_range_pc", None, "true distances in pc", nargs=2, flag="--dist-range",
+                 metavar=("LO", "HI")),
+    SpreadOption("ebv_range", None, "true E(B-V) in mag", nargs=2, metavar=("LO", "HI")),
+    Option("error_mag", None, "photometric noise, 1 sigma (default 0.02)", flag="--error", metavar="MAG"),
+    SpreadOption("v_range", None, "apparent V magnitudes allowed on the sheet (default 3 14 simple, 4 16 full)",
+                 nargs=2, metavar=("BRIGHT", "FAINT")),
+    _LAW,
+    _RV,
+    Option("decimals", DEFAULT_DECIMALS, f"decimals shown in the key (default {DEFAULT_DECIMALS})", kind=int),
+)

@@ -5,7 +5,7 @@ defaults from here and the command line builds its arguments from here.
 Options whose command-line form differs from the keyword (``--keep-evolved``
 for ``exclude_evolved=False``, ``--no-binaries``, ``--bootstrap N`` for
 ``method``/``n_boot``, ``--col`` for ``columns``, ``LO,HI`` pairs and
-comma-separated band lists) are converted by :mod:`specpar.cli_cluster`.
+comma-separated band lists) are converted by :mod:`specpar.cli.cluster`.
 """
 from __future__ import annotations
 

@@ -18,12 +18,12 @@ distance modulus); with more, chi-square measures the bands' consistency.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from types import SimpleNamespace
 
 import numpy as np
 from scipy.special import chdtrc
 
 from .bands import BANDS, chain_matrices
-from .distance import dm_to_pc  # noqa: F401  (re-exported until the cluster package imports it from .distance)
 
 __all__ = ["Observables", "solve", "SolverResult", "fit_draws_compact",
            "observable_groups"]
@@ -263,16 +263,18 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
     SolverResult
     """
     N, K = obs.y.shape
-    # one set of coefficients for all stars: in observable space once
-    LR = obs.L @ np.asarray(R, float) if np.ndim(R) == 1 else None
-    LdR = obs.L @ np.asarray(dR, float) if np.ndim(dR) == 1 else None
-    R = np.broadcast_to(np.asarray(R, float), (N, len(BANDS)))
-    dR = np.broadcast_to(np.asarray(dR, float), (N, len(BANDS)))
     absmag = np.asarray(absmag, float)
     per_code = codes is not None
-    if codes is None:
-        codes = np.arange(N)
-    codes = np.asarray(codes, np.intp)
+    codes = np.asarray(np.arange(N) if codes is None else codes, np.intp)
+    use = _usable(obs, absmag, codes, sigma_rv, rv_free)
+    fit = _solve_groups(obs, absmag, codes, per_code, use, R, dR, sub_modes, var_mv, var_colour,
+                        keep_weights)
+    return _result(fit, use, rv, N)
+
+
+def _usable(obs: Observables, absmag, codes, sigma_rv, rv_free) -> SimpleNamespace:
+    """Which observables each star can use, and what they let the fit determine."""
+    N = obs.y.shape[0]
     touches = obs.L != 0  # (K, nb)
     # an observable is uncalibrated where any band it touches has no calibration
     uncalibrated = ((~np.isfinite(absmag)).astype(float) @ touches.T.astype(float) > 0)[codes]  # (N, K)
@@ -287,14 +289,24 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
     n_used = valid.sum(axis=1)
     dof = n_used - colour_known.astype(int) - mag_known.astype(int)
     free = np.zeros(N, bool) if rv_free is None else np.asarray(rv_free, bool) & colour_known & mag_known
-    e_rv = sig_rv.copy()
+    return SimpleNamespace(valid=valid, colour_known=colour_known, mag_known=mag_known, sig_rv=sig_rv,
+                           n_used=n_used, dof=dof, free=free,
+                           uncalibrated=(uncalibrated & measured).any(axis=1))
 
-    # every row is solved at its own size: rows are grouped by the number of
-    # observables they use, and each row's own observables are gathered
-    theta = np.zeros((N, 2))
-    cov = np.broadcast_to(np.eye(2), (N, 2, 2)).copy()  # stays for rows without data
-    chi2 = np.zeros(N)
-    W = np.broadcast_to(np.eye(K), (N, K, K)).copy() if keep_weights else None
+
+def _solve_groups(obs, absmag, codes, per_code, use, R, dR, sub_modes, var_mv, var_colour,
+                  keep_weights) -> SimpleNamespace:
+    """Every row solved at its own size: rows are grouped by the number of observables they
+    use, and each row's own observables are gathered."""
+    N, K = obs.y.shape
+    # one set of coefficients for all stars: in observable space once
+    LR = obs.L @ np.asarray(R, float) if np.ndim(R) == 1 else None
+    LdR = obs.L @ np.asarray(dR, float) if np.ndim(dR) == 1 else None
+    R = np.broadcast_to(np.asarray(R, float), (N, len(BANDS)))
+    dR = np.broadcast_to(np.asarray(dR, float), (N, len(BANDS)))
+    out = SimpleNamespace(theta=np.zeros((N, 2)), cov=np.broadcast_to(np.eye(2), (N, 2, 2)).copy(),
+                          chi2=np.zeros(N), e_rv=use.sig_rv.copy(),
+                          W=np.broadcast_to(np.eye(K), (N, K, K)).copy() if keep_weights else None)
     # per calibration row (few when codes are given): observable-space values
     model = np.nan_to_num(absmag) @ obs.L.T  # (U, K)
     var_mv = np.nan_to_num(np.asarray(var_mv, float))
@@ -309,7 +321,7 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
                                 np.broadcast_to(l1_all, (len(var_mv), K)),
                                 np.broadcast_to(LP_all, (len(var_mv),) + LP_all.shape),
                                 sub_modes, var_mv, var_colour)
-    for rows, kidx in observable_groups(valid):
+    for rows, kidx in observable_groups(use.valid):
         k = kidx.shape[1]
         c = codes[rows]
         Lg = obs.L[kidx]  # (n, k, nb)
@@ -325,16 +337,22 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
         else:
             C = _calibration_cov(Lg, l1, LP_all[kidx], sub_modes[c], var_mv[c], var_colour[c])
         C[:, np.arange(k), np.arange(k)] += sig ** 2
-        th, cv, c2, erv, Wg = _gls_group(ydiff, A, C, u, sig_rv[rows], colour_known[rows],
-                                         mag_known[rows], free[rows], keep_weights)
-        theta[rows], cov[rows], chi2[rows] = th, cv, c2
+        th, cv, c2, erv, Wg = _gls_group(ydiff, A, C, u, use.sig_rv[rows], use.colour_known[rows],
+                                         use.mag_known[rows], use.free[rows], keep_weights)
+        out.theta[rows], out.cov[rows], out.chi2[rows] = th, cv, c2
         if erv is not None:
-            e_rv[rows[free[rows]]] = erv
+            out.e_rv[rows[use.free[rows]]] = erv
         if keep_weights:
             # unused observables keep the identity block the padded solve gave them
-            W[rows[:, None, None], kidx[:, :, None], kidx[:, None, :]] = Wg
-    dof = dof - free.astype(int)
-    nodata = n_used == 0
+            out.W[rows[:, None, None], kidx[:, :, None], kidx[:, None, :]] = Wg
+    return out
+
+
+def _result(fit, use, rv, N) -> SolverResult:
+    """Pinned and unsolvable rows set, errors and correlation from the covariance."""
+    theta, cov, colour_known, mag_known = fit.theta, fit.cov, use.colour_known, use.mag_known
+    dof = use.dof - use.free.astype(int)
+    nodata = use.n_used == 0
     theta[~colour_known, 1] = 0.0  # pinned, not fitted
     theta[~mag_known, 0] = np.nan
     theta[nodata] = np.nan
@@ -343,16 +361,15 @@ def solve(obs: Observables, absmag, sub_modes, var_mv, var_colour,
     corr = cov[:, 0, 1] / (e_dm * e_e)
     e_e = np.where(colour_known, e_e, 0.0)
     corr = np.where(colour_known, corr, 0.0)
-    chi2 = np.where(nodata, np.nan, chi2)
+    chi2 = np.where(nodata, np.nan, fit.chi2)
     return SolverResult(
         dm=theta[:, 0], e_dm=np.where(nodata, np.nan, e_dm), ebv=theta[:, 1],
         e_ebv=np.where(nodata, np.nan, e_e), corr=np.where(nodata, np.nan, corr),
-        chi2=chi2, dof=dof, n_used=n_used, colour_known=colour_known,
-        uncalibrated=(uncalibrated & measured).any(axis=1),
-        rv=np.broadcast_to(np.asarray(rv, float), (N,)).copy(), e_rv=e_rv,
-        valid=valid, weights=W, mag_known=mag_known,
+        chi2=chi2, dof=dof, n_used=use.n_used, colour_known=colour_known,
+        uncalibrated=use.uncalibrated,
+        rv=np.broadcast_to(np.asarray(rv, float), (N,)).copy(), e_rv=fit.e_rv,
+        valid=use.valid, weights=fit.W, mag_known=mag_known,
     )
-
 
 def fit_draws_compact(weights, colour_known, mag_known, ydiff, a0, a1):
     """Refit many draws per star with each star's weights held fixed, for stars that all use

@@ -178,21 +178,8 @@ def _parse_single(norm: str, raw: str, out: dict) -> dict:
     """Parse one (normalised, non-composite) type; ``raw`` is quoted in messages."""
     out = dict(out)
     details = []
-    prefix = _PREFIX.match(norm)
-    if prefix:
-        pre = prefix["pre"]
-        norm = norm[prefix.end():].strip()
-    am = _AM.match(norm.upper())
-    if am and am["k"] and (am["h"] or am["m"]):
-        used = am["h"] or am["k"]
-        parts = ", ".join(f"{n} {am[g]}" for n, g in (("K-line", "k"), ("hydrogen", "h"), ("metallic", "m"))
-                          if am[g])
-        details.append(f"Am type ({parts}): the {'hydrogen-line' if am['h'] else 'K-line'} type {used} "
-                       "is used (Gray & Corbally 2009)")
-        norm = used + (" " + am["tail"].strip() if am["tail"].strip() else "")
-        am_star = True
-    else:
-        am_star = False
+    pre, norm = _strip_prefix(norm)
+    norm, am_star = _am_type(norm, details)
     spaced = norm.replace("?", ":")  # '?' marks uncertainty like ':'
     spaced = re.sub(r"\s*:+", ":", spaced)
     s = spaced.upper()
@@ -203,53 +190,23 @@ def _parse_single(norm: str, raw: str, out: dict) -> dict:
     if not m:
         return _unreadable(out, f"cannot read spectral type {raw!r}: it does not start with a temperature "
                                 f"class {'/'.join(TEMPERATURE_CLASSES)} and a subtype")
-    flags = 0
-    base = TEMPERATURE_CLASSES.index(m["cls"]) * 10.0
-    if m["sub"] is None:
-        sub, e_sub = 5.0, 10.0 / np.sqrt(12.0)
-        flags |= Flag.NO_SUBTYPE
-    else:
-        sub, e_sub = float(m["sub"]), DEFAULT_SUBTYPE_SIGMA
-        if sub >= 10:
-            return _unreadable(out, f"subtype {m['sub']} in {raw!r} is not 0-9.9")
-    num = base + sub
-    if m["sub2"] is not None:
-        base2 = TEMPERATURE_CLASSES.index(m["cls2"]) * 10.0 if m["cls2"] else base
-        num2 = base2 + float(m["sub2"])
-        if float(m["sub2"]) >= 10 or num2 < num:
-            return _unreadable(out, f"type range in {raw!r} is not increasing")
-        half = (num2 - num) / 2.0
-        num, e_sub = num + half, max(e_sub, half)
+    temperature = _temperature(m, raw)
+    if isinstance(temperature, str):
+        return _unreadable(out, temperature)
+    num, e_sub, flags = temperature
     rest = spaced[m.start("rest"):].strip() if len(spaced) == len(s) else (m["rest"] or "").strip()
     if m["unc1"] or rest.startswith(":"):
         flags |= Flag.TYPE_UNCERTAIN
         e_sub = max(e_sub, 1.0)
         rest = rest.lstrip(": ")
-    lum = m["lum"]
-    if lum is None:
-        if rest and rest[0].isalpha() and not re.match(r"^(E|N|NN|P|VAR|V|K|M|S|W|SH|SHELL|PEC)\b", rest.upper()):
-            return _unreadable(out, f"cannot read {rest!r} in {raw!r}: neither a luminosity class "
-                                    "(Ia, Iab, Ib, II, III, IV, V) nor a known peculiarity code")
-        if rest and not rest.startswith("(") and _STRAY_CLASS.search(rest.upper()):
-            return _unreadable(out, f"cannot read {rest!r} in {raw!r}: it looks like a luminosity class "
-                                    "but does not follow the type as one")
-        if prefix:
-            classes = _lum_pair(_PREFIX_CLASS[pre])
-            details.insert(0, f"prefix '{pre}' ({_PREFIX_NAME[pre]}, Mount Wilson notation) read as class "
-                              f"{_PREFIX_CLASS[pre]}")
-        else:
-            classes = ("V", "V")
-            flags |= Flag.NO_LUMCLASS
-    else:
-        classes, why, remark = _lum_classes(lum.replace(" ", ""))
-        if why:
-            out.update(flags=int(Flag.TYPE_UNSUPPORTED), detail=f"{why}: {raw!r}")
-            return out
-        if remark:
-            flags |= Flag.LUMCLASS_NEAREST
-            details.append(remark)
-        if prefix and _lum_pair(_PREFIX_CLASS[pre]) != classes:
-            details.append(f"prefix '{pre}' ({_PREFIX_NAME[pre]}) disagrees with class {lum}: class {lum} used")
+    lumin = _luminosity(m["lum"], rest, raw, pre, details)
+    if isinstance(lumin, dict):
+        out.update(lumin)
+        return out
+    if isinstance(lumin, str):
+        return _unreadable(out, lumin)
+    classes, lum_flags = lumin
+    flags |= lum_flags
     if am_star:
         flags |= Flag.PECULIAR
     if rest:
@@ -258,6 +215,77 @@ def _parse_single(norm: str, raw: str, out: dict) -> dict:
     out.update(sptnum=num, e_sptnum=e_sub, lc_bright=classes[0], lc_faint=classes[1],
                flags=int(flags), detail="; ".join(details))
     return out
+
+
+def _strip_prefix(norm: str):
+    """Mount Wilson prefix (``d``, ``g``, ``sg``, ...) and the rest of the type."""
+    prefix = _PREFIX.match(norm)
+    if not prefix:
+        return None, norm
+    return prefix["pre"], norm[prefix.end():].strip()
+
+
+def _am_type(norm: str, details: list):
+    """An Am type (K-line, hydrogen, metallic types) read as its hydrogen-line type
+    (else its K-line type), Gray & Corbally 2009; returns (type, is Am)."""
+    am = _AM.match(norm.upper())
+    if not (am and am["k"] and (am["h"] or am["m"])):
+        return norm, False
+    used = am["h"] or am["k"]
+    parts = ", ".join(f"{n} {am[g]}" for n, g in (("K-line", "k"), ("hydrogen", "h"), ("metallic", "m"))
+                      if am[g])
+    details.append(f"Am type ({parts}): the {'hydrogen-line' if am['h'] else 'K-line'} type {used} "
+                   "is used (Gray & Corbally 2009)")
+    return used + (" " + am["tail"].strip() if am["tail"].strip() else ""), True
+
+
+def _temperature(m, raw: str):
+    """(numeric type, its uncertainty, flags) from the matched type, or the reason it is unreadable."""
+    flags = 0
+    base = TEMPERATURE_CLASSES.index(m["cls"]) * 10.0
+    if m["sub"] is None:
+        sub, e_sub = 5.0, 10.0 / np.sqrt(12.0)
+        flags |= Flag.NO_SUBTYPE
+    else:
+        sub, e_sub = float(m["sub"]), DEFAULT_SUBTYPE_SIGMA
+        if sub >= 10:
+            return f"subtype {m['sub']} in {raw!r} is not 0-9.9"
+    num = base + sub
+    if m["sub2"] is not None:
+        base2 = TEMPERATURE_CLASSES.index(m["cls2"]) * 10.0 if m["cls2"] else base
+        num2 = base2 + float(m["sub2"])
+        if float(m["sub2"]) >= 10 or num2 < num:
+            return f"type range in {raw!r} is not increasing"
+        half = (num2 - num) / 2.0
+        num, e_sub = num + half, max(e_sub, half)
+    return num, e_sub, flags
+
+
+def _luminosity(lum, rest: str, raw: str, pre, details: list):
+    """((bright, faint) classes, flags); or the reason the type is unreadable (str); or the
+    fields of an unsupported class (dict)."""
+    flags = 0
+    if lum is None:
+        if rest and rest[0].isalpha() and not re.match(r"^(E|N|NN|P|VAR|V|K|M|S|W|SH|SHELL|PEC)\b", rest.upper()):
+            return (f"cannot read {rest!r} in {raw!r}: neither a luminosity class "
+                    "(Ia, Iab, Ib, II, III, IV, V) nor a known peculiarity code")
+        if rest and not rest.startswith("(") and _STRAY_CLASS.search(rest.upper()):
+            return (f"cannot read {rest!r} in {raw!r}: it looks like a luminosity class "
+                    "but does not follow the type as one")
+        if pre:
+            details.insert(0, f"prefix '{pre}' ({_PREFIX_NAME[pre]}, Mount Wilson notation) read as class "
+                              f"{_PREFIX_CLASS[pre]}")
+            return _lum_pair(_PREFIX_CLASS[pre]), flags
+        return ("V", "V"), flags | Flag.NO_LUMCLASS
+    classes, why, remark = _lum_classes(lum.replace(" ", ""))
+    if why:
+        return {"flags": int(Flag.TYPE_UNSUPPORTED), "detail": f"{why}: {raw!r}"}
+    if remark:
+        flags |= Flag.LUMCLASS_NEAREST
+        details.append(remark)
+    if pre and _lum_pair(_PREFIX_CLASS[pre]) != classes:
+        details.append(f"prefix '{pre}' ({_PREFIX_NAME[pre]}) disagrees with class {lum}: class {lum} used")
+    return classes, flags
 
 
 def _lum_pair(roman: str) -> tuple[str, str]:

@@ -3,7 +3,7 @@
 :data:`OPTIONS` holds every option (default, unit, help text); the dataclass
 :class:`EstimateOptions` is made from it, :func:`specpar.estimate` resolves its
 keywords through it, and ``specpar estimate`` builds its command-line options
-from it (see ``specpar/cli_estimate.py``). To add an option: declare it here,
+from it (see ``specpar/cli/estimate.py``). To add an option: declare it here,
 read it where the pipeline needs it; the API, its signature, its docstring and
 the command line follow.
 """

@@ -17,10 +17,9 @@ import warnings
 __all__ = ["SEED_BITS", "SMALL_SEED_BITS", "KDF_ITERATIONS", "LABEL_LETTERS", "SmallSeedWarning",
            "fresh_seed", "warn_if_small", "derive_seed"]
 
-#: Bits of a seed drawn when none is given (``secrets.randbits``).
-SEED_BITS = 128
-#: Seeds shorter than this many bits get a :class:`SmallSeedWarning`.
-SMALL_SEED_BITS = 64
+#: Bits of a seed drawn when none is given (``secrets.randbits``), and the length below which
+#: a seed gets a :class:`SmallSeedWarning`.
+SEED_BITS, SMALL_SEED_BITS = 128, 64
 #: PBKDF2 iterations between the seed and the generator (key stretching, RFC 8018): every seed a
 #: student tries costs this much work, on top of the search over all seeds.
 KDF_ITERATIONS = 100_000

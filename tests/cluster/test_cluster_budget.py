@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 from specpar import cluster as C
-from specpar.cli_cluster import register
+from specpar.cli.cluster import register
 from specpar.cluster.locus import E_FEH_SLOPE, FEH_SLOPE
 
 

@@ -79,9 +79,9 @@ PROBLEM_OPTIONS = OptionSet(
     Option("seed", None, f"seed, to make the same set again (default: a fresh {SEED_BITS}-bit seed, written to "
            f"the key only); seeds under {SMALL_SEED_BITS} bits can be found by students and get a warning",
            kind=int),
-    Option("n_stars", 10, "number of stars (default 10)", kind=int, flag="--n", metavar="N"),
-    Option("level", "full", "simple: V only, class V, no extinction; full: several bands, reddening, errors "
-           "(default full)", kind=str, choices=tuple(LEVELS)),
+    Option("n_stars", 10, "number of stars", kind=int, flag="--n", metavar="N"),
+    Option("level", "full", "simple: V only, class V, no extinction; full: several bands, reddening, errors",
+           kind=str, choices=tuple(LEVELS)),
     SpreadOption("types", None, "temperature classes (e.g. G K) or types (e.g. G2)", kind=str, nargs="+",
                  metavar="T"),
     SpreadOption("classes", None, "luminosity classes (e.g. V III)", kind=str, nargs="+", metavar="LC"),

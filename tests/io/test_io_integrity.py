@@ -310,12 +310,14 @@ def test_missing_sptype_lists_columns(capsys, tmp_path):
 # ----------------------------------------------------------------------------- output checks
 
 def _no_compute(monkeypatch):
-    import sys
-    est = sys.modules["specpar.estimate"]
+    import importlib
 
     def boom(*a, **k):
         raise AssertionError("computed before checking the output")
-    monkeypatch.setattr(est, "estimate", boom)
+    monkeypatch.setattr(importlib.import_module("specpar.pipeline.estimate"), "estimate", boom)
+    # the file runners call the per-table step directly
+    for name in ("specpar.batch.stream", "specpar.batch.blocks", "specpar.batch.csvblocks"):
+        monkeypatch.setattr(importlib.import_module(name), "run_estimate", boom)
 
 
 def test_output_checked_before_computing(capsys, stars, tmp_path, monkeypatch):

@@ -23,20 +23,22 @@ _PAIRS = ("dm_range", "ebv_range", "ebv_prior")
 _SWITCHES_OFF = ("exclude_evolved", "binaries")
 
 
-def range_pair(text):
-    """``"LO,HI"`` as two floats; :class:`InputError` otherwise."""
+def range_pair(words):
+    """``LO HI`` or ``LO,HI`` (command-line words) as two floats; :class:`InputError` otherwise."""
+    text = ",".join(words) if isinstance(words, (list, tuple)) else words
     try:
         lo, hi = (float(x) for x in text.split(","))
     except ValueError:
-        raise InputError(f"expected LOW,HIGH (two numbers separated by a comma), got {text!r}") from None
+        raise InputError(f"expected two numbers, LO HI or LO,HI, got {text!r}") from None
     return lo, hi
 
 
 def _add_fit_option(p, opt):
     """One fit option on the command line, in its command-line form."""
-    if opt.name in _PAIRS:  # parsed by range_pair after argparse, so errors read as before
-        default = None if opt.default is None else ",".join(f"{x:g}" for x in opt.default)
-        p.add_argument(opt.cli_flag, dest=opt.name, default=default, metavar=opt.metavar, help=opt.help)
+    if opt.name in _PAIRS:  # LO HI or LO,HI; parsed by range_pair after argparse
+        default = None if opt.default is None else [",".join(f"{x:g}" for x in opt.default)]
+        p.add_argument(opt.cli_flag, dest=opt.name, default=default, nargs="+", metavar=opt.metavar,
+                       help=opt.help)
     elif opt.name in _SWITCHES_OFF:
         p.add_argument(opt.cli_flag, dest=opt.name, action="store_false", help=opt.help)
     elif opt.name == "bands":

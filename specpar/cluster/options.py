@@ -50,8 +50,8 @@ FIT_OPTIONS = OptionSet(
            "dwarfs) or a locus table in the calibration format", kind=str, metavar="NAME|FILE"),
     Option("feh", 0.0, "cluster [Fe/H]"),
     Option("e_feh", 0.1, "uncertainty of [Fe/H]", unit="dex"),
-    Option("ebv_prior", None, "known E(B-V) and its error, used as a prior (needed with one colour)",
-           kind=tuple, metavar="VALUE,ERROR"),
+    Option("ebv_prior", None, "known E(B-V) and its error, used as a prior (needed with one colour): "
+           "VALUE ERROR or VALUE,ERROR", kind=tuple, metavar=("VALUE", "ERROR")),
     Option("sigma_rv", DEFAULT_SIGMA_RV, "uncertainty of R_V in the error budget"),
     Option("exclude_evolved", True, "do not set aside stars above the binary sequence (giants, turn-off, "
            "stragglers)", kind=bool, flag="--keep-evolved"),
@@ -66,10 +66,10 @@ FIT_OPTIONS = OptionSet(
            metavar="MAG", show_default=False),
     Option("faint_limit", np.inf, "ignore stars fainter than this ordinate magnitude", metavar="MAG",
            show_default=False),
-    Option("dm_range", (-2.0, 25.0), "allowed distance moduli (default -2,25; write --dm-range=-1,20 when "
-           "LO < 0)", kind=tuple, metavar="LO,HI"),
-    Option("ebv_range", (0.0, 3.0), "allowed E(B-V) (default 0,3; write --ebv-range=-0.05,2 when LO < 0)",
-           kind=tuple, metavar="LO,HI"),
+    Option("dm_range", (-2.0, 25.0), "allowed distance moduli: LO HI or LO,HI (default -2 25; write "
+           "--dm-range=-1,20 for the comma form when LO < 0)", kind=tuple, metavar=("LO", "HI")),
+    Option("ebv_range", (0.0, 3.0), "allowed E(B-V): LO HI or LO,HI (default 0 3; write --ebv-range=-0.05,2 "
+           "for the comma form when LO < 0)", kind=tuple, metavar=("LO", "HI")),
     Option("binaries", True, "fit without the binary sequence", kind=bool, flag="--no-binaries"),
     Option("field_model", FIELD_MODELS[0], "colour density of field stars", kind=str, choices=FIELD_MODELS),
     Option("width", DEFAULT_WIDTH, "intrinsic width of the sequence", unit="mag", metavar="MAG"),

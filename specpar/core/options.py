@@ -60,7 +60,8 @@ def in_range(lo, hi) -> Callable[[Any], str | None]:
 
 
 def parse_range(value, name="range") -> tuple[float, float]:
-    """``(lo, hi)`` from a pair, ``"LO,HI"`` or ``["LO", "HI"]``; :class:`InputError` unless lo < hi."""
+    """``(lo, hi)`` from a pair, ``"LO,HI"``, ``["LO,HI"]`` or ``["LO", "HI"]``; :class:`InputError`
+    unless both are finite numbers with lo <= hi (the function that takes the range checks the rest)."""
     parts = value
     if isinstance(value, str):
         parts = value.split(",")
@@ -70,8 +71,8 @@ def parse_range(value, name="range") -> tuple[float, float]:
         lo, hi = (float(v) for v in parts)
     except (TypeError, ValueError):
         raise InputError(f"{name} must be two numbers LO HI (or LO,HI), got {value!r}") from None
-    if not (math.isfinite(lo) and math.isfinite(hi) and lo < hi):
-        raise InputError(f"{name} must be finite with LO < HI, got {lo:g}, {hi:g}")
+    if not (math.isfinite(lo) and math.isfinite(hi) and lo <= hi):
+        raise InputError(f"{name} must be finite with LO <= HI, got {lo:g}, {hi:g}")
     return lo, hi
 
 

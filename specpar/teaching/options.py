@@ -16,7 +16,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from specpar.core.bands import BAND_NAMES
-from specpar.core.options import Option, OptionSet
+from specpar.core.options import RANGE, Option, OptionSet
 from specpar.pipeline.options import EstimateOptions
 from specpar.calib.extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
 from specpar.io.formats import FORMATS as TABLE_FORMATS
@@ -86,12 +86,11 @@ PROBLEM_OPTIONS = OptionSet(
                  metavar="T"),
     SpreadOption("classes", None, "luminosity classes (e.g. V III)", kind=str, nargs="+", metavar="LC"),
     SpreadOption("bands", None, f"bands on the sheet, among {' '.join(BAND_NAMES)}", kind=str, nargs="+", metavar="BAND"),
-    SpreadOption("dist_range_pc", None, "true distances in pc", nargs=2, flag="--dist-range",
-                 metavar=("LO", "HI")),
-    SpreadOption("ebv_range", None, "true E(B-V) in mag", nargs=2, metavar=("LO", "HI")),
+    Option("dist_range_pc", None, "true distances in pc: LO HI or LO,HI", kind=RANGE, flag="--dist-range"),
+    Option("ebv_range", None, "true E(B-V) in mag: LO HI or LO,HI", kind=RANGE),
     Option("error_mag", None, "photometric noise, 1 sigma (default 0.02)", flag="--error", metavar="MAG"),
-    SpreadOption("v_range", None, "apparent V magnitudes allowed on the sheet (default 3 14 simple, 4 16 full)",
-                 nargs=2, metavar=("BRIGHT", "FAINT")),
+    Option("v_range", None, "apparent V magnitudes allowed on the sheet: BRIGHT FAINT or BRIGHT,FAINT "
+           "(default 3 14 simple, 4 16 full)", kind=RANGE, metavar=("BRIGHT", "FAINT")),
     _LAW,
     _RV,
     Option("decimals", DEFAULT_DECIMALS, f"decimals shown in the key (default {DEFAULT_DECIMALS})", kind=int),

@@ -266,7 +266,7 @@ def test_cli_bad_inputs(tmp_path, capsys, field):
 def test_cli_bad_option(tmp_path, capsys, field):
     rc = _cli(tmp_path, field[:50], "--ebv-range", "0.5")
     err = capsys.readouterr().err
-    assert rc == 1 and "LOW,HIGH" in err
+    assert rc == 1 and "LO HI or LO,HI" in err
 
 
 def test_cli_writes_members_and_diagrams(tmp_path, capsys, field):

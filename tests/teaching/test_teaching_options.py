@@ -21,8 +21,8 @@ def test_problem_flags_reach_their_python_names():
     ns = build_parser().parse_args(["problems", "--out-dir", "d", "--n", "4", "--dist-range", "50", "900",
                                     "--error", "0.03", "--types", "G", "K", "--v-range", "5", "12"])
     got = PROBLEM_OPTIONS.from_namespace(ns)
-    assert got["n_stars"] == 4 and got["dist_range_pc"] == [50.0, 900.0] and got["error_mag"] == 0.03
-    assert got["types"] == ["G", "K"] and got["v_range"] == [5.0, 12.0]
+    assert got["n_stars"] == 4 and got["dist_range_pc"] == (50.0, 900.0) and got["error_mag"] == 0.03
+    assert got["types"] == ["G", "K"] and got["v_range"] == (5.0, 12.0)
 
 
 def test_worked_defaults_are_those_of_estimate_and_of_the_python_function():

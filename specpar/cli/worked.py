@@ -26,7 +26,7 @@ def _cmd_worked(args) -> int:
     opts = WORKED_OPTIONS.from_namespace(args)
     table = read_table(args.input, opts["in_format"], hdu=opts["hdu"])
     ws = worked_solutions(table, decimals=opts["decimals"], **{k: opts[k] for k in _ESTIMATE_NAMES},
-                          calibrations=tuple(opts["calibration"]), columns=column_map(opts["col"]))
+                          calibrations=tuple(opts["calibrations"]), columns=column_map(opts["columns"]))
     write_worked(ws, args.output, opts["format"], inputs=[args.input], overwrite=opts["overwrite"],
                  title=opts["title"] or f"Worked solutions: {Path(args.input).name}")
     n_solved = sum(st.solved for st in ws.stars)

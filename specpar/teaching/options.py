@@ -12,13 +12,14 @@ command line gets it in the same order as declared.
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from typing import Any
 
 from specpar.core.bands import BAND_NAMES
 from specpar.core.options import RANGE, Option, OptionSet
-from specpar.pipeline.options import EstimateOptions
-from specpar.calib.extinction import DEFAULT_LAW, DEFAULT_RV, LAWS
+from specpar.pipeline.options import OPTIONS as ESTIMATE_OPTIONS
+from specpar.calib.extinction import LAWS
 from specpar.io.formats import FORMATS as TABLE_FORMATS
 
 from .levels import LEVELS
@@ -35,10 +36,10 @@ MAX_DECIMALS = 10
 #: Output formats of a worked solution, by name and file extension (documents, and the CSV key).
 DOCUMENT_FORMATS = {"md": (".md", ".markdown"), "html": (".html", ".htm"), "csv": (".csv",)}
 
-_EST = EstimateOptions()
-#: The extinction law and R_V, offered by both commands.
-_LAW = Option("law", DEFAULT_LAW, f"extinction law (default {DEFAULT_LAW})", kind=str, choices=tuple(LAWS))
-_RV = Option("rv", DEFAULT_RV, f"R_V (default {DEFAULT_RV})")
+#: The estimate options both commands offer are the estimate's own declarations (law, R_V, ...);
+#: the extinction law is offered by name on the command line.
+_LAW = dataclasses.replace(ESTIMATE_OPTIONS["law"], choices=tuple(LAWS))
+_RV = ESTIMATE_OPTIONS["rv"]
 
 
 @dataclass(frozen=True)
@@ -63,15 +64,10 @@ WORKED_OPTIONS = OptionSet(
            choices=tuple(TABLE_FORMATS)),
     Option("hdu", None, "FITS: the table HDU to read when the file holds several (VOTable: table index or ID)",
            kind=str, metavar="N|NAME"),
-    Option("col", [], "map a column name (repeatable)", kind=list, metavar="OURS=YOURS"),
+    ESTIMATE_OPTIONS["columns"],
     _LAW,
     _RV,
-    Option("sigma_rv", _EST.sigma_rv, f"uncertainty of R_V (default {_EST.sigma_rv})"),
-    Option("fit_rv", _EST.fit_rv, "fit R_V per star where the bands allow", kind=bool),
-    Option("default_error", _EST.default_error,
-           f"error in mag assumed where a magnitude has none (default {_EST.default_error})", unit="mag"),
-    Option("calibration", [], "your own calibration table (ECSV), replacing the shipped one of its class",
-           kind=list, metavar="FILE"),
+    *(ESTIMATE_OPTIONS[name] for name in ("sigma_rv", "fit_rv", "default_error", "calibrations")),
     Option("overwrite", False, "replace the output file if it exists", kind=bool),
 )
 

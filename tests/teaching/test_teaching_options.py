@@ -32,4 +32,4 @@ def test_worked_defaults_are_those_of_estimate_and_of_the_python_function():
     assert got["decimals"] == DEFAULT_DECIMALS == inspect.signature(worked_solutions).parameters["decimals"].default
     assert (got["law"], got["rv"], got["sigma_rv"], got["fit_rv"], got["default_error"]) == \
         (est.law, est.rv, est.sigma_rv, est.fit_rv, est.default_error)
-    assert got["col"] == [] and got["calibration"] == [] and got["format"] is None
+    assert got["columns"] == [] and got["calibrations"] == [] and got["format"] is None

@@ -17,6 +17,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..core.errors import InputError
+from ..io.atomic import make_folder
 from ..io.write import parquet_meta
 from .blocks import solve_blocks
 
@@ -147,7 +148,7 @@ def publish_folder(build, dst, *, overwrite=False, inputs=()):
     if not dst.parent.exists():
         raise InputError(f"output folder {dst.parent} does not exist")
     tmp = dst.parent / f".{dst.name}.tmp-{uuid.uuid4().hex[:_TAG_HEX_DIGITS]}"
-    tmp.mkdir()
+    make_folder(tmp, exist_ok=False)
     try:
         result = build(tmp)
         if dst.exists():

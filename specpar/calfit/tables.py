@@ -12,6 +12,7 @@ from astropy.table import Table
 
 from specpar.core.errors import InputError
 from specpar.core.sptype import TEMPERATURE_CLASSES
+from specpar.io.atomic import make_folder
 
 __all__ = ["IntrinsicColours", "calibration_table", "write_calibrations", "type_name", "FITTED_COLOURS"]
 
@@ -154,7 +155,7 @@ def write_calibrations(fit, outdir, prefix="calibration", overwrite=False) -> li
     refused (:class:`~specpar.core.errors.InputError`) unless ``overwrite``.
     """
     out = Path(outdir)
-    out.mkdir(parents=True, exist_ok=True)
+    make_folder(out, parents=True)
     paths = []
     for lc, t in fit.tables.items():
         p = out / f"{prefix}_{lc}.ecsv"

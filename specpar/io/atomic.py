@@ -24,10 +24,17 @@ import threading
 from pathlib import Path
 
 from ..core.errors import InputError
-from .formats import DELIMITED_FORMATS, STDOUT_FORMATS, file_kind, guess_format, is_stdout, sidecar_path
+from .formats import (
+    DELIMITED_FORMATS,
+    STDOUT_FORMATS,
+    file_kind,
+    guess_format,
+    is_stdout,
+    sidecar_path,
+)
 
 __all__ = ["check_output", "check_path", "temp_path_for", "publish", "atomic_write", "sweep_stale_temps",
-           "Terminated", "TEMP_TAG"]
+           "Terminated", "TEMP_TAG", "make_folder"]
 
 #: Marker in the names of our temporary files: ``.<name>.specpar-<pid>-<n>.tmp``.
 TEMP_TAG = "specpar"
@@ -262,9 +269,12 @@ def atomic_write(path, writer, *, inputs=(), overwrite=False, what="output") -> 
     if main:
         old = signal.signal(signal.SIGTERM, _raise_terminated)
     try:
-        fd = os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, TEMP_FILE_BITS)
-        os.close(fd)
-        writer(str(tmp))
+        try:
+            fd = os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, TEMP_FILE_BITS)
+            os.close(fd)
+            writer(str(tmp))
+        except OSError as exc:  # the file system refused: no space, quota, read-only, permissions
+            raise InputError(f"cannot write {what} {path}: {exc.strerror or exc}") from None
         publish(tmp, path, overwrite=overwrite, what=what)
     finally:
         try:
@@ -273,3 +283,13 @@ def atomic_write(path, writer, *, inputs=(), overwrite=False, what="output") -> 
         finally:
             if main:
                 signal.signal(signal.SIGTERM, old if old is not None else signal.SIG_DFL)
+
+
+def make_folder(path, *, parents=False, exist_ok=True, what="output folder") -> Path:
+    """``Path(path).mkdir(...)``; a refusal of the file system becomes :class:`InputError`."""
+    path = Path(path)
+    try:
+        path.mkdir(parents=parents, exist_ok=exist_ok)
+    except OSError as exc:
+        raise InputError(f"cannot create {what} {path}: {exc.strerror or exc}") from None
+    return path

@@ -8,12 +8,12 @@ from pathlib import Path
 
 import numpy as np
 
-from specpar.core.bands import BANDS, band_index
+from specpar.calib.extinction import LAWS, coefficients_at
 from specpar.calib.tables import default_calibrations
+from specpar.core.bands import BANDS, band_index
 from specpar.core.errors import InputError
-from specpar.calib.extinction import coefficients_at
-from specpar.calib.extinction import LAWS
 from specpar.core.sptype import DEFAULT_SUBTYPE_SIGMA
+from specpar.io.atomic import make_folder
 from specpar.io.write import write_table
 
 from .draw import SHEET_DECIMALS
@@ -21,7 +21,7 @@ from .equations import band_chain
 from .model import SummaryTable
 from .numbers import SHORT_DECIMALS, fmt, fmt_error, md_text
 from .output import write_text
-from .problems import ProblemSet, Z_DECIMALS
+from .problems import Z_DECIMALS, ProblemSet
 from .render_html import html_page, html_table, render_html
 from .render_md import md_table, render_markdown
 
@@ -195,7 +195,7 @@ def write_problem_set(ps: ProblemSet, out_dir, *, overwrite: bool = False, decim
         raise InputError(f"{out_dir} exists and is not a folder; choose another --out-dir")
     if not out_dir.parent.is_dir():
         raise InputError(f"folder {out_dir.parent} does not exist; create it first")
-    out_dir.mkdir(exist_ok=True)
+    make_folder(out_dir)
     files = problem_files(ps, out_dir)
     taken = [str(p) for p in files.values() if p.exists()]
     if taken and not overwrite:

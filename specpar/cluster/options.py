@@ -13,6 +13,7 @@ import numpy as np
 
 from specpar.core.errors import InputError
 from specpar.core.options import Option, OptionSet
+from specpar.pipeline.options import OPTIONS as ESTIMATE_OPTIONS
 from specpar.calib.extinction import DEFAULT_LAW, DEFAULT_RV, LAWS, check_law
 
 from .diagnostics import DEFAULT_PLX_SYSTEMATIC, DEFAULT_PLX_ZERO_POINT
@@ -25,9 +26,9 @@ __all__ = ["DEFAULT_WIDTH", "DEFAULT_ERROR", "FIELD_MODELS", "METHODS", "FIT_OPT
 
 #: Intrinsic width of a cluster sequence added to every observable (mag; common practice).
 DEFAULT_WIDTH = 0.03
-#: Photometric error (mag) assumed where a magnitude has none (flagged ERROR_DEFAULTED), as
-#: for :func:`specpar.estimate` (common practice for catalogue photometry without errors).
-DEFAULT_ERROR = 0.05
+#: Photometric error (mag) assumed where a magnitude has none (flagged ERROR_DEFAULTED): the
+#: declaration of :func:`specpar.estimate` (common practice for catalogue photometry without errors).
+DEFAULT_ERROR = ESTIMATE_OPTIONS["default_error"].default
 #: Colour densities of the field component (see :mod:`.field`).
 FIELD_MODELS = ("dwarfs+broad", "broad")
 #: How uncertainties are derived.

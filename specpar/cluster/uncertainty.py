@@ -16,6 +16,7 @@ import numpy as np
 
 from specpar.core.bands import BAND_NAMES, band_index
 from specpar.core.distance import dm_to_pc
+from specpar.pipeline.options import OPTIONS as ESTIMATE_OPTIONS
 
 from .likelihood import components, maximise, mixture, negloglike, parameter_bounds, subset_model
 from .locus import E_FEH_SLOPE, FEH_SLOPE
@@ -25,9 +26,9 @@ from .reddening import reddening_vectors
 __all__ = ["DEFAULT_SIGMA_RV", "PHOT_ZP", "hessian_cov", "bootstrap", "shifted_theta", "systematics",
            "uncertainties"]
 
-#: Uncertainty of R_V used in the error budget (common practice: the Galactic scatter of R_V
-#: around 3.1 is ~0.2; Fitzpatrick & Massa 2007, ApJ 663, 320, from memory).
-DEFAULT_SIGMA_RV = 0.2
+#: Uncertainty of R_V used in the error budget: the estimate's own declaration (the Galactic
+#: scatter of R_V around 3.1 is ~0.2; Fitzpatrick & Massa 2007, ApJ 663, 320, from memory).
+DEFAULT_SIGMA_RV = ESTIMATE_OPTIONS["sigma_rv"].default
 #: Photometric zero-point uncertainty per band (mag) in the error budget (common practice;
 #: Gaia DR2: Evans, D. W. et al. 2018, A&A 616, A4, a few mmag in G and ~0.01 in BP/RP,
 #: from memory).

@@ -288,7 +288,7 @@ def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress, wat
     """Solve the pieces of one file on the cluster and write them into one Parquet
     file in order, as they come back; at most a few pieces are held at once."""
     import json
-    n_workers = max(1, len(client.scheduler_info().get("workers", {})))
+    n_workers = max(1, watch.workers() or 0)  # asked with a time bound
     window = PIECES_PER_WORKER * n_workers
     futures, names = [], []
     bar = _dask_bar(pieces, progress)

@@ -63,7 +63,7 @@ class Watchdog:
         except Exception:  # a closed client has no address any more
             return "(unknown address)"
 
-    def _workers(self):
+    def workers(self):
         """Workers the scheduler knows (None when it does not answer in time)."""
         try:
             info = self.client.sync(self.client.scheduler.identity, n_workers=-1,
@@ -86,7 +86,7 @@ class Watchdog:
                              f"written; raise the limit, add workers, or use --engine local")
         if now < self.next_health:
             return
-        workers = self._workers() if self.client.status == "running" else None
+        workers = self.workers() if self.client.status == "running" else None
         self.next_health = time.monotonic() + HEALTH_EVERY_S
         if workers:
             self.unwell_since = None

@@ -12,6 +12,7 @@ import sys
 import threading
 import time
 
+import numpy as np
 import pytest
 
 from specpar.batch.bench import synthetic_mixed
@@ -138,3 +139,27 @@ def test_cli_time_limit_is_one_line(heavy_parquet, tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 1 and "Traceback" not in err and len(err.strip().splitlines()) == 1
     assert "time limit" in err and not dst.exists()
+
+
+def test_healthy_run_outlives_a_short_grace(heavy_parquet, tmp_path, monkeypatch):
+    """The watchdog sees the workers of a healthy cluster: a run much longer than a
+    (shortened) grace finishes, with the single-process output."""
+    import pandas as pd
+    import specpar.batch.daskwatch as watch
+    monkeypatch.setattr(watch, "LOST_GRACE_S", 0.5)
+    monkeypatch.setattr(watch, "HEALTH_EVERY_S", 0.1)
+    one, many = tmp_path / "one.parquet", tmp_path / "many.parquet"
+    kw = dict(chunk_rows=300, method="mc", n_draws=300, seed=3)
+    estimate_file(heavy_parquet, one, **kw)
+    with _cluster(1) as c:
+        start = time.monotonic()
+        estimate_file(heavy_parquet, many, engine="dask", scheduler=c.scheduler_address, time_limit=600, **kw)
+        assert time.monotonic() - start > 2 * 0.5  # several health checks happened
+    a, b = pd.read_parquet(many), pd.read_parquet(one)
+    assert list(a.columns) == list(b.columns)
+    for col in a.columns:
+        x, y = a[col].to_numpy(), b[col].to_numpy()
+        if x.dtype.kind in "fi":
+            assert np.array_equal(x.view(np.int64), y.view(np.int64)), col  # 64-bit patterns
+        else:
+            assert [str(v) for v in x] == [str(v) for v in y], col

@@ -14,10 +14,14 @@ row's result depends only on that row and the options (Monte Carlo draws are
 keyed on the row's content, :mod:`specpar.core.mcdraws`), so the results equal the
 single-process run bit for bit. A failed piece is retried once; if it fails
 again the run stops with the piece's name and leaves no output under the
-final name.
+final name. The file runs end in bounded time whatever happens to the
+scheduler or the workers (:mod:`specpar.batch.daskwatch`: a lost scheduler, a
+cluster without workers, or the run's ``time_limit``), again with one clear
+error and no output.
 """
 from __future__ import annotations
 
+import contextlib
 import os
 from pathlib import Path
 
@@ -27,6 +31,8 @@ from ..core.errors import InputError
 from ..io.atomic import atomic_write
 from ..io.formats import guess_format
 from .blocks import DEFAULT_CHUNK_ROWS, combine_counts, estimate_frame, make_options, solve_blocks
+from .daskwatch import RunStopped, Watchdog
+from .options import RUN_OPTIONS
 from .parquet import (dataset_files, is_dataset, output_schema, parquet_blocks, parquet_writer, publish_folder,
                       run_parquet_file)
 
@@ -40,6 +46,8 @@ SCHEDULER_TIMEOUT = "20s"
 #: Pieces of one file submitted per worker at a time: one solving, one waiting, so
 #: workers never idle while memory stays bounded (common practice).
 PIECES_PER_WORKER = 2
+#: Seconds the client and a cluster started for the run get to close (our choice).
+CLOSE_TIMEOUT_S = 10
 
 
 def _require_dask():
@@ -151,7 +159,7 @@ def _solve_piece(path, row_groups, out_path, opts, chunk_rows):
 
 
 def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk_rows=DEFAULT_CHUNK_ROWS,
-                       workers=None, scheduler=None, overwrite=False, progress=False):
+                       workers=None, scheduler=None, overwrite=False, progress=False, time_limit=None):
     """:func:`specpar.batch.stream.estimate_file` with ``engine="dask"`` (Parquet input only).
 
     The pieces are a dataset's files or groups of a file's row groups; each
@@ -159,25 +167,38 @@ def estimate_file_dask(src, dst, *, opts, in_format=None, out_format=None, chunk
     (so the output folder must be visible to every worker: a shared file
     system on a real cluster). A dataset gives a dataset folder mirroring the
     input; a single file gives a single file, joined from the pieces in order.
+    ``time_limit`` (seconds, None for none) bounds the whole run; a lost
+    scheduler or a cluster without workers stops it too
+    (:class:`specpar.batch.daskwatch.Watchdog`).
     """
     src, dst = Path(src), Path(dst)
+    RUN_OPTIONS["time_limit"].validate(time_limit)
     _check_paths(src, dst, in_format, out_format)
     pieces = _pieces(src, chunk_rows)
     client, cluster = connect(workers, scheduler)
     try:
+        watch = Watchdog(client, time_limit, len(pieces))
         if is_dataset(src):
-            return publish_folder(lambda tmp: _solve_into_folder(client, pieces, tmp, opts, chunk_rows, progress),
-                                  dst, overwrite=overwrite, inputs=[src])
+            return publish_folder(lambda tmp: _solve_into_folder(client, pieces, tmp, opts, chunk_rows, progress,
+                                                                 watch), dst, overwrite=overwrite, inputs=[src])
         result = {}
 
         def writer(tmp_file):
-            result.update(_ordered_into_file(client, pieces, tmp_file, opts, chunk_rows, progress))
+            result.update(_ordered_into_file(client, pieces, tmp_file, opts, chunk_rows, progress, watch))
         atomic_write(dst, writer, inputs=[src], overwrite=overwrite)
         return result
     finally:
-        client.close()
-        if cluster is not None:
-            cluster.close()
+        _close(client, cluster)
+
+
+def _close(client, cluster) -> None:
+    """Close the client and a cluster started for the run, in bounded time; a
+    failure to close (the scheduler already gone) does not hide the run's result."""
+    with contextlib.suppress(Exception):
+        client.close(timeout=CLOSE_TIMEOUT_S)
+    if cluster is not None:
+        with contextlib.suppress(Exception):
+            cluster.close(timeout=CLOSE_TIMEOUT_S)
 
 
 def _check_paths(src: Path, dst: Path, in_format, out_format) -> None:
@@ -207,27 +228,30 @@ def _failed(name, exc) -> InputError:
     return InputError(f"partition {name} failed {RETRIES + 1} times; no output written: {msg}")
 
 
-def _solve_into_folder(client, pieces, tmp, opts, chunk_rows, progress) -> dict:
-    """Every worker writes its pieces under the folder ``tmp``; the counts."""
-    from distributed import as_completed
-    futures = {}
+def _solve_into_folder(client, pieces, tmp, opts, chunk_rows, progress, watch) -> dict:
+    """Every worker writes its pieces under the folder ``tmp``; the counts
+    (collected in the pieces' order, each waited for through ``watch``)."""
+    futures = []
     for name, path, groups, rel in pieces:
         fut = client.submit(_solve_piece, path, groups, str(tmp / rel), opts, chunk_rows,
                             retries=RETRIES, pure=False, key=f"specpar-{abs(hash((str(tmp), name)))}")
-        futures[fut] = name
+        futures.append((fut, name))
     bar = _dask_bar(pieces, progress)
     total = {}
     try:
-        for fut in as_completed(list(futures)):
+        for fut, name in futures:
             try:
-                total = combine_counts(total, fut.result())
+                counts = watch.result(fut)
+            except RunStopped:
+                raise
             except Exception as exc:
-                for other in futures:
-                    other.cancel()
-                raise _failed(futures[fut], exc) from None
+                raise _failed(name, exc) from None
+            total = combine_counts(total, counts)
             if bar is not None:
-                bar.update(fut.result()["rows"])
+                bar.update(counts["rows"])
     finally:
+        for fut, _ in futures:
+            fut.cancel()
         if bar is not None:
             bar.close()
     return total
@@ -260,11 +284,11 @@ def _solve_piece_table(path, row_groups, opts, chunk_rows):
     return summary, sink.meta, table
 
 
-def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress):
+def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress, watch):
     """Solve the pieces of one file on the cluster and write them into one Parquet
     file in order, as they come back; at most a few pieces are held at once."""
     import json
-    n_workers = max(1, len(client.scheduler_info().get("workers", {})))
+    n_workers = max(1, watch.workers() or 0)  # asked with a time bound
     window = PIECES_PER_WORKER * n_workers
     futures, names = [], []
     bar = _dask_bar(pieces, progress)
@@ -281,10 +305,10 @@ def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress):
             submit(i)
         for i in range(len(pieces)):
             try:
-                summary, meta, table = futures[i].result()
+                summary, meta, table = watch.result(futures[i])
+            except RunStopped:
+                raise
             except Exception as exc:
-                for f in futures[i:]:
-                    f.cancel()
                 raise _failed(names[i], exc) from None
             futures[i] = None  # release the piece
             if i + window < len(pieces):
@@ -298,6 +322,9 @@ def _ordered_into_file(client, pieces, out_path, opts, chunk_rows, progress):
             if bar is not None:
                 bar.update(summary["rows"])
     finally:
+        for f in futures:
+            if f is not None:  # pieces not yet collected (after an error)
+                f.cancel()
         if writer is not None:
             writer.close()
         if bar is not None:

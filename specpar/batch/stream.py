@@ -161,7 +161,7 @@ def _estimate_local(src, dst, in_format, out_format, opts, chunk_rows, threads, 
 
 def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAULT_CHUNK_ROWS, threads=None,
                   engine="local", workers=None, scheduler=None, overwrite=False, progress=False, hdu=None,
-                  max_field_length=None, **options):
+                  max_field_length=None, time_limit=None, **options):
     """Spectroscopic-parallax distances for every row of a file or Parquet dataset.
 
     Parameters
@@ -196,6 +196,10 @@ def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAU
     max_field_length : int, optional
         Cut text cells longer than this in the output (whole-table path; see
         :func:`specpar.io.write.write_table`).
+    time_limit : float, optional
+        Dask: seconds after which an unfinished run stops with an error and no
+        output (default: no limit; a lost scheduler or a cluster without workers
+        stops the run anyway, see :mod:`specpar.batch.daskwatch`).
     **options
         The keywords of :func:`specpar.estimate` (``law``, ``rv``, ``method``, ...).
 
@@ -215,8 +219,10 @@ def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAU
         from .daskrun import estimate_file_dask
         return estimate_file_dask(src, dst, in_format=in_format, out_format=out_format,
                                   chunk_rows=chunk_rows or DEFAULT_CHUNK_ROWS, workers=workers,
-                                  scheduler=scheduler, overwrite=overwrite, progress=progress, opts=opts)
-    if workers is not None or scheduler is not None:
-        raise InputError("workers and scheduler apply to the dask engine only (engine='dask', --engine dask)")
+                                  scheduler=scheduler, overwrite=overwrite, progress=progress, opts=opts,
+                                  time_limit=time_limit)
+    if workers is not None or scheduler is not None or time_limit is not None:
+        raise InputError("workers, scheduler and time_limit apply to the dask engine only "
+                         "(engine='dask', --engine dask)")
     return _estimate_local(src, dst, in_format, out_format, opts, chunk_rows, threads, overwrite, progress, hdu,
                            max_field_length)

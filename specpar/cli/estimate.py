@@ -14,6 +14,7 @@ from specpar.io.columns import column_map
 from specpar.core.errors import InputError
 from specpar.core.options import OptionSet
 from specpar.pipeline.options import OPTIONS
+from specpar.batch.options import RUN_OPTIONS
 from specpar.io.atomic import check_output
 from specpar.io.formats import FORMATS
 
@@ -73,6 +74,7 @@ def _add_block_options(p) -> None:
                    help="dask: workers of the local cluster started for the run (default: one per core)")
     g.add_argument("--scheduler", default=None, metavar="ADDRESS",
                    help="dask: address of a running scheduler, e.g. tcp://127.0.0.1:8786")
+    RUN_OPTIONS.add_arguments(g)
 
 
 def add_estimate_options(p) -> None:
@@ -117,7 +119,7 @@ def _cmd_estimate(args):
         args.input, args.output, in_format=args.in_format, out_format=args.out_format,
         chunk_rows=args.chunk_rows, threads=args.threads, engine=args.engine, workers=args.workers,
         scheduler=args.scheduler, overwrite=args.overwrite, progress=not args.quiet,
-        hdu=args.hdu, max_field_length=args.max_field_length, **options)
+        hdu=args.hdu, max_field_length=args.max_field_length, **RUN_OPTIONS.from_namespace(args), **options)
     if not args.quiet:
         mapping = describe_mapping(summary.get("column_mapping") or {})
         stream = sys.stderr if args.output == "-" else sys.stdout

@@ -51,6 +51,7 @@ class Data:
     prior: np.ndarray | None  # (n,) membership prior or None
     y_all: np.ndarray  # (N, K) NaN where missing
     var_all: np.ndarray  # (N, K)
+    prior_all: np.ndarray | None = None  # (N,) membership prior per input row, or None
 
     @property
     def a(self):
@@ -174,7 +175,7 @@ def cluster_data(table, opts) -> Data:
     prior = membership_prior(frame, opts["membership"], flags)
     detail = np.full(N, "", dtype=object)
     return Data(frame, names, L, k_ord, y, var, None, np.zeros(0, int), flags, detail, prior,
-                y, var)
+                y, var, prior)
 
 
 def finalise_data(d: Data, usable: np.ndarray) -> None:
@@ -182,8 +183,8 @@ def finalise_data(d: Data, usable: np.ndarray) -> None:
     rows = np.flatnonzero(usable)
     d.rows = rows
     d.y, d.ivar, d.lognorm = masked_gaussian(d.y_all[rows], d.var_all[rows])
-    if d.prior is not None:
-        d.prior = d.prior[rows]
+    if d.prior_all is not None:  # from the whole input each time: the used rows may shrink twice
+        d.prior = d.prior_all[rows]
 
 
 def colour_space(d: Data, y, var):

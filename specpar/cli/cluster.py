@@ -9,10 +9,10 @@ import os
 import warnings
 
 from specpar.io.columns import column_map
-from specpar.core.errors import InputError
+from specpar.core.options import parse_pair
 from specpar.io.figures import figure_format
 
-__all__ = ["register", "range_pair", "fit_options"]
+__all__ = ["register", "fit_options"]
 
 #: Command-line order of the fit options; entries in _SPECIAL take a command-line form of
 #: their own (pairs, lists, inverted switches), the rest are added from the declarations.
@@ -23,19 +23,9 @@ _PAIRS = ("dm_range", "ebv_range", "ebv_prior")
 _SWITCHES_OFF = ("exclude_evolved", "binaries")
 
 
-def range_pair(words):
-    """``LO HI`` or ``LO,HI`` (command-line words) as two floats; :class:`InputError` otherwise."""
-    text = ",".join(words) if isinstance(words, (list, tuple)) else words
-    try:
-        lo, hi = (float(x) for x in text.split(","))
-    except ValueError:
-        raise InputError(f"expected two numbers, LO HI or LO,HI, got {text!r}") from None
-    return lo, hi
-
-
 def _add_fit_option(p, opt):
     """One fit option on the command line, in its command-line form."""
-    if opt.name in _PAIRS:  # LO HI or LO,HI; parsed by range_pair after argparse
+    if opt.name in _PAIRS:  # LO HI or LO,HI; parsed by parse_pair after argparse
         default = None if opt.default is None else [",".join(f"{x:g}" for x in opt.default)]
         p.add_argument(opt.cli_flag, dest=opt.name, default=default, nargs="+", metavar=opt.metavar,
                        help=opt.help)
@@ -86,7 +76,8 @@ def fit_options(args) -> dict:
     kw = {k: v for k, v in FIT_OPTIONS.from_namespace(args, skip=special).items() if k in _ORDER}
     kw["bands"] = [b.strip() for b in args.bands.split(",")] if args.bands else None
     kw["columns"] = column_map(args.col)
-    kw.update({name: range_pair(getattr(args, name)) if getattr(args, name) else None for name in _PAIRS})
+    kw.update({name: parse_pair(getattr(args, name), FIT_OPTIONS[name].cli_flag) if getattr(args, name) else None
+               for name in _PAIRS})
     kw["method"] = "bootstrap" if args.bootstrap else "profile"
     kw["n_boot"] = args.bootstrap or FIT_OPTIONS["n_boot"].default
     return kw

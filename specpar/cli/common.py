@@ -4,9 +4,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from specpar.io.columns import column_map as _column_map
-
-__all__ = ["Parser", "column_map"]
+__all__ = ["Parser"]
 
 
 class Parser(argparse.ArgumentParser):
@@ -16,7 +14,3 @@ class Parser(argparse.ArgumentParser):
         self.print_usage(sys.stderr)
         self.exit(2, f"{self.prog}: error: {message}\n")
 
-
-def column_map(pairs):
-    """``--col OURS=YOURS`` pairs to a mapping (see :func:`specpar.io.columns.column_map`)."""
-    return _column_map(pairs)

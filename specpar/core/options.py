@@ -17,7 +17,7 @@ from typing import Any, Callable, Iterable
 
 from .errors import InputError
 
-__all__ = ["Option", "OptionSet", "RANGE", "parse_range", "positive", "non_negative", "at_least", "finite",
+__all__ = ["Option", "OptionSet", "RANGE", "parse_pair", "parse_range", "positive", "non_negative", "at_least", "finite",
            "in_range"]
 
 #: ``kind`` of an option that takes a range: ``LO HI`` or ``LO,HI`` on the command line,
@@ -59,18 +59,25 @@ def in_range(lo, hi) -> Callable[[Any], str | None]:
     return check
 
 
-def parse_range(value, name="range") -> tuple[float, float]:
-    """``(lo, hi)`` from a pair, ``"LO,HI"``, ``["LO,HI"]`` or ``["LO", "HI"]``; :class:`InputError`
-    unless both are finite numbers with lo <= hi (the function that takes the range checks the rest)."""
+def parse_pair(value, name="pair") -> tuple[float, float]:
+    """Two numbers from a pair, ``"A,B"``, ``["A,B"]`` or ``["A", "B"]`` (command-line words);
+    :class:`InputError` otherwise."""
     parts = value
     if isinstance(value, str):
         parts = value.split(",")
     elif len(value) == 1 and isinstance(value[0], str):
         parts = value[0].split(",")
     try:
-        lo, hi = (float(v) for v in parts)
+        a, b = (float(v) for v in parts)
     except (TypeError, ValueError):
-        raise InputError(f"{name} must be two numbers LO HI (or LO,HI), got {value!r}") from None
+        raise InputError(f"{name} must be two numbers, LO HI or LO,HI, got {value!r}") from None
+    return a, b
+
+
+def parse_range(value, name="range") -> tuple[float, float]:
+    """``(lo, hi)`` as :func:`parse_pair` reads it; :class:`InputError` unless both are finite
+    with lo <= hi (the function that takes the range checks the rest)."""
+    lo, hi = parse_pair(value, name)
     if not (math.isfinite(lo) and math.isfinite(hi) and lo <= hi):
         raise InputError(f"{name} must be finite with LO <= HI, got {lo:g}, {hi:g}")
     return lo, hi

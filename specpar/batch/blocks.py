@@ -10,13 +10,13 @@ from __future__ import annotations
 
 import os
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import fields, replace
+from dataclasses import replace
 
 import numpy as np
 import pandas as pd
 
 from specpar.pipeline.estimate import run_estimate
-from specpar.pipeline.options import EstimateOptions
+from specpar.pipeline.options import EstimateOptions, options_from
 from specpar.core.flags import Flag
 
 from ..core.errors import InputError
@@ -29,19 +29,9 @@ __all__ = ["DEFAULT_CHUNK_ROWS", "make_options", "estimate_frame", "default_thre
 DEFAULT_CHUNK_ROWS = 100_000
 
 
-_OPTION_NAMES = {f.name for f in fields(EstimateOptions)}
-
-
 def make_options(**kwargs) -> EstimateOptions:
-    """:class:`EstimateOptions` from :func:`specpar.estimate` keywords, checked."""
-    unknown = sorted(set(kwargs) - _OPTION_NAMES)
-    if unknown:
-        raise TypeError(f"unknown option(s) {', '.join(unknown)}; valid: {', '.join(sorted(_OPTION_NAMES))}")
-    if "calibrations" in kwargs:
-        kwargs["calibrations"] = tuple(kwargs["calibrations"] or ())
-    if "columns" in kwargs:
-        kwargs["columns"] = dict(kwargs["columns"] or {})
-    opts = EstimateOptions(**kwargs)
+    """:class:`EstimateOptions` from :func:`specpar.estimate` keywords, checked before any reading."""
+    opts = options_from(kwargs)
     opts.check()
     return opts
 

@@ -32,7 +32,7 @@ from .fit import solve_rows
 from .frames import combine_codes, join_detail, to_frame
 from .notes import ebv_detail, fit_flags, notes
 from .observables import prepare_observables
-from .options import MAX_MAG_ERROR, OPTIONS, EstimateOptions
+from .options import MAX_MAG_ERROR, OPTIONS, EstimateOptions, options_from
 from .parallax import COLUMNS as PLX_COLUMNS, crosscheck, metadata as plx_metadata
 from .sources import SpectralTypeSource, calibrate_rows
 
@@ -159,10 +159,7 @@ def run_estimate(table, opts: EstimateOptions):
 
 
 def estimate(table, **options):  # signature and docstring: below, from the declarations
-    opts = OPTIONS.resolve(options, what="estimate() options")
-    opts["calibrations"] = tuple(opts["calibrations"] or ())
-    opts["columns"] = dict(opts["columns"] or {})
-    return run_estimate(table, EstimateOptions(**opts))
+    return run_estimate(table, options_from(options))
 
 
 estimate.__signature__ = inspect.Signature(

@@ -18,7 +18,7 @@ from ..core.errors import InputError
 from ..core.options import Option, OptionSet
 from .tension import DEFAULT_LENGTH_SCALE_PC
 
-__all__ = ["OPTIONS", "EstimateOptions", "DEFAULT_MAG_ERROR", "MAX_MAG_ERROR", "PLX_GROUP"]
+__all__ = ["OPTIONS", "EstimateOptions", "options_from", "DEFAULT_MAG_ERROR", "MAX_MAG_ERROR", "PLX_GROUP"]
 
 #: Documented default photometric error (mag) where none is given (common practice
 #: for catalogue photometry of moderate quality).
@@ -113,3 +113,13 @@ EstimateOptions = dataclasses.make_dataclass(
 EstimateOptions.__module__ = __name__
 EstimateOptions.__doc__ = ("Options of :func:`specpar.estimate` (every CLI option has its field here).\n\n"
                            "Attributes\n----------\n" + OPTIONS.doc())
+
+
+def options_from(options: dict) -> EstimateOptions:
+    """:class:`EstimateOptions` from :func:`specpar.estimate` keywords: defaults from the
+    declarations, unknown names refused (:class:`InputError`), calibrations and columns normalised."""
+    opts = OPTIONS.resolve(options, what="estimate() options")
+    opts["calibrations"] = tuple(opts["calibrations"] or ())
+    opts["columns"] = dict(opts["columns"] or {})
+    return EstimateOptions(**opts)
+

@@ -18,6 +18,7 @@ from __future__ import annotations
 import itertools
 import os
 import re
+import shutil
 import signal
 import stat
 import threading
@@ -169,7 +170,8 @@ def _pid_alive(pid: int) -> bool:
 
 
 def sweep_stale_temps(path) -> list:
-    """Remove our temporary files for ``path`` left by runs that no longer exist.
+    """Remove our temporary files (and folders of pieces) for ``path`` left by
+    runs that no longer exist.
 
     Only names of our own pattern (``.<name>.specpar-<pid>-<n>.tmp``) whose
     process is gone are removed; returns the paths removed.
@@ -187,6 +189,9 @@ def sweep_stale_temps(path) -> list:
         try:
             if e.is_file(follow_symlinks=False):
                 os.remove(e.path)
+                removed.append(Path(e.path))
+            elif e.is_dir(follow_symlinks=False):
+                shutil.rmtree(e.path)
                 removed.append(Path(e.path))
         except OSError:
             pass

@@ -163,3 +163,19 @@ def test_healthy_run_outlives_a_short_grace(heavy_parquet, tmp_path, monkeypatch
             assert np.array_equal(x.view(np.int64), y.view(np.int64)), col  # 64-bit patterns
         else:
             assert [str(v) for v in x] == [str(v) for v in y], col
+
+
+def test_a_cancelled_piece_stops_the_run_cleanly():
+    """The watchdog waits on a done-callback (not on timed ``future.result``
+    calls, whose rare race in distributed 2026.8 was reported as a failing
+    piece): finished futures give their results, and a cancelled one stops the
+    run as a lost scheduler would. The race itself is too rare to provoke here."""
+    from specpar.batch.daskwatch import RunStopped, Watchdog
+    with _cluster(1) as c, distributed.Client(c) as client:
+        quick = [client.submit(time.sleep, 0.01, pure=False) for _ in range(40)]
+        watch = Watchdog(client, None, len(quick))
+        assert [watch.result(f) for f in quick] == [None] * 40
+        slow = client.submit(time.sleep, 30, pure=False)
+        client.cancel(slow)
+        with pytest.raises(RunStopped):
+            watch.result(slow)

@@ -392,6 +392,19 @@ def test_stale_temp_files_are_swept(capsys, stars, tmp_path):
     assert sweep_stale_temps(dst) == []
 
 
+def test_stale_folder_of_pieces_is_swept(tmp_path):
+    """A killed Dask run leaves its folder of pieces under our temporary naming;
+    the next run for the same output removes it (a live run's is left alone)."""
+    dst = tmp_path / "o.parquet"
+    dead = tmp_path / ".o.parquet.specpar-999999999-3.tmp"
+    alive = tmp_path / f".o.parquet.specpar-{os.getppid()}-3.tmp"
+    for folder in (dead, alive):
+        folder.mkdir()
+        (folder / "part-000000.parquet").write_bytes(b"x")
+    assert sweep_stale_temps(dst) == [dead]
+    assert not dead.exists() and alive.exists()
+
+
 def test_nested_columns_checked_up_front(capsys, tmp_path, monkeypatch):
     # issue 14.13
     df = pd.DataFrame({"id": ["N1", "N2"], "sptype": ["K0 III", "G2 V"], "V": [10.5, 10.0],

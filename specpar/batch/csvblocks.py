@@ -1,9 +1,14 @@
 """A CSV or text file estimated block by block into a CSV or text file, byte
-for byte what the whole-table path writes (file and sidecar).
+for byte what the whole-table path writes (file and sidecar), or into a
+Parquet file holding the same columns, values and metadata as the whole-table
+path's (in row groups of one block each).
 
 Blocks are read with the whole-file reader's rules and column types
 (:func:`specpar.io.blocks.delimited_plan`), solved row by row, and written with
-its writer (header once, CRLF, formula escaping), the sidecar last.
+its writer (header once, CRLF, formula escaping), the sidecar last; for
+Parquet, the metadata that depends on every block (cells cut to
+``max_field_length``, the longest text for astropy's reader) goes into the
+file's footer when the last block is written.
 
 References
 ----------
@@ -12,6 +17,7 @@ RFC 4180 (CSV records and CRLF line ends); OWASP "CSV Injection" guidance
 """
 from __future__ import annotations
 
+import base64
 import gzip
 import json
 from dataclasses import replace
@@ -24,14 +30,61 @@ from ..io.blocks import delimited_blocks, delimited_plan
 from ..io.cells import check_columns_writable, check_max_field_length, columns_frame, prepared_columns
 from ..io.formats import gzipped
 from ..io.sidecar import write_sidecar
-from ..io.write import write_delimited
+from ..io.write import astropy_parquet_header, parquet_meta, write_delimited
 from .blocks import add_counts, new_summary, progress_bar
+from .parquet import output_schema, parquet_writer
 
 __all__ = ["estimate_delimited"]
 
 
 class _NotUniform(Exception):
     """A block's output differs in columns, types or metadata from the first block's."""
+
+
+class _ParquetBlocks:
+    """Appends solved blocks to one Parquet file; the metadata goes in at :meth:`close`."""
+
+    def __init__(self, path):
+        self.path, self.writer, self.schema = path, None, None
+        self.first_rows, self.lens, self.astropy_ok = None, {}, True
+
+    def write(self, frame) -> None:
+        import pyarrow as pa
+        arrow = pa.Table.from_pandas(frame, preserve_index=False)
+        if self.writer is None:
+            self.schema = output_schema(arrow.schema, {})
+            self.writer = parquet_writer(self.path, self.schema)
+            self.first_rows = frame.iloc[:0]
+        self.writer.write_table(arrow.select(self.schema.names).cast(self.schema))
+        header = astropy_parquet_header(frame, {})
+        self.astropy_ok &= bool(header)
+        for key, value in header.items():
+            if key.startswith(b"table::len::"):
+                self.lens[key] = max(self.lens.get(key, 0), int(value))
+
+    def abort(self) -> None:
+        """Close the file of a run that failed (the caller removes it)."""
+        if self.writer is not None:
+            self.writer.close()
+
+    def close(self, meta) -> None:
+        """Write the metadata of the whole run (specpar's, and astropy's header
+        with each text column's longest cell over all blocks) and finish the file."""
+        if self.writer is None:
+            return
+        extra = parquet_meta(meta)
+        header = astropy_parquet_header(self.first_rows, meta) if self.astropy_ok else {}
+        if header:
+            extra[b"table_meta_yaml"] = header[b"table_meta_yaml"]
+            extra.update({k: str(v).encode() for k, v in self.lens.items()})
+        # Readers take the Arrow schema (and its metadata) from the footer key
+        # ARROW:schema, a base64 IPC schema written when the file was opened (Apache
+        # Arrow, "Reading and writing Parquet files": storing the Arrow schema); it
+        # is replaced by the final schema, so they see the whole run's metadata.
+        final = self.schema.with_metadata({**(self.schema.metadata or {}), **extra})
+        extra[b"ARROW:schema"] = base64.b64encode(final.serialize().to_pybytes())
+        self.writer.add_key_value_metadata(extra)
+        self.writer.close()
 
 
 class _DelimitedRun:
@@ -59,7 +112,10 @@ class _DelimitedRun:
         for k, n in cut.items():
             self.cut[k] = self.cut.get(k, 0) + n
         try:
-            self.escaped |= write_delimited(frame, fh, self.fmt_out, True, header=self.summary["rows"] == 0)
+            if self.fmt_out == "parquet":
+                fh.write(frame)
+            else:
+                self.escaped |= write_delimited(frame, fh, self.fmt_out, True, header=self.summary["rows"] == 0)
         except (ValueError, TypeError, OSError, UnicodeError) as exc:
             raise InputError(f"cannot write {self.dst} as {self.fmt_out}: {exc}") from None
         add_counts(self.summary, out["flags"])
@@ -75,8 +131,8 @@ class _DelimitedRun:
 
 def estimate_delimited(src, fmt_in, dst, fmt_out, opts, chunk_rows, overwrite=False, progress=False,
                        max_field_length=None):
-    """CSV/text in, CSV/text out, block by block; the counts, or None when the file
-    must go through the whole-table path instead.
+    """CSV/text in, CSV/text or Parquet out, block by block; the counts, or None
+    when the file must go through the whole-table path instead.
 
     When a block's result columns, their types or the metadata differ from the
     first block's (e.g. a Cepheid column only some blocks have), the partial
@@ -94,18 +150,30 @@ def estimate_delimited(src, fmt_in, dst, fmt_out, opts, chunk_rows, overwrite=Fa
     run = _DelimitedRun(dst, fmt_out, max_field_length)
     block_opts = replace(opts, progress=False)
 
-    def writer(tmp):
+    def solve_into(fh):
         nonlocal bar
+        for table in delimited_blocks(plan):
+            check_columns_writable(table, fmt_out, max_field_length)
+            out = run_estimate(table, block_opts)
+            if bar is None and progress:
+                bar = progress_bar(plan["rows"], True)
+            run.write_block(out, fh)
+            if bar is not None:
+                bar.update(len(out))
+
+    def writer(tmp):
+        if fmt_out == "parquet":
+            sink = _ParquetBlocks(tmp)
+            try:
+                solve_into(sink)
+            except BaseException:
+                sink.abort()
+                raise
+            sink.close(run.final_meta())
+            return
         opener = gzip.open if gzipped(dst) else open
         with opener(tmp, "wt", encoding="utf-8", newline="") as fh:
-            for table in delimited_blocks(plan):
-                check_columns_writable(table, fmt_out, max_field_length)
-                out = run_estimate(table, block_opts)
-                if bar is None and progress:
-                    bar = progress_bar(plan["rows"], True)
-                run.write_block(out, fh)
-                if bar is not None:
-                    bar.update(len(out))
+            solve_into(fh)
     try:
         atomic_write(dst, writer, inputs=inputs, overwrite=overwrite)
     except _NotUniform:
@@ -113,6 +181,7 @@ def estimate_delimited(src, fmt_in, dst, fmt_out, opts, chunk_rows, overwrite=Fa
     finally:
         if bar is not None:
             bar.close()
-    write_sidecar(dst, run.final_meta(), run.escaped, inputs=inputs, overwrite=overwrite)
+    if fmt_out != "parquet":
+        write_sidecar(dst, run.final_meta(), run.escaped, inputs=inputs, overwrite=overwrite)
     return run.summary
 

@@ -12,15 +12,14 @@ A Parquet dataset (a folder of Parquet files, possibly hive-partitioned as
 ``key=value/`` folders) is processed file by file; the output folder mirrors
 the input's layout, so it carries the same partitioning.
 
-A CSV or text file written to CSV or text is streamed too, with the very rules
+A CSV or text file written to CSV, text or Parquet is streamed too, with the very rules
 of the whole-table reader and writer of :mod:`specpar.io` (leading-comment
 block, row-count check, column types decided for the whole file on a first pass
-that keeps no rows, formula escaping, sidecar metadata): the output bytes are
-those of ``chunk_rows=0`` (:mod:`specpar.batch.csvblocks`). Where that cannot be
-promised (text in runs of blanks, an input the reader refuses, blocks whose
+that keeps no rows, formula escaping, sidecar metadata): the CSV output bytes
+are those of ``chunk_rows=0``, and a Parquet output has its columns, values
+and metadata (:mod:`specpar.batch.csvblocks`). Where that cannot be promised (text in runs of blanks, an input the reader refuses, blocks whose
 result columns differ), the file goes through the whole-table path. Other
-combinations (ECSV, FITS, VOTable, and CSV to Parquet) are read and written
-whole by :mod:`specpar.io`.
+combinations (ECSV, FITS, VOTable) are read and written whole by :mod:`specpar.io`.
 
 Because every row's result depends only on that row and the options (see
 :mod:`specpar.estimate`), the output is the same whatever the block size,
@@ -134,7 +133,7 @@ def _estimate_table_file(src: Path, dst: Path, in_format, out_format, opts, chun
     """A table file (not a dataset): streamed where the formats allow, else whole."""
     fmt_in = guess_format(src, in_format)
     fmt_out = guess_format(str(dst), out_format) if not is_stdout(dst) else (out_format or "csv")
-    if chunk_rows and hdu is None and fmt_in in DELIMITED_FORMATS and fmt_out in DELIMITED_FORMATS:
+    if chunk_rows and hdu is None and fmt_in in DELIMITED_FORMATS and fmt_out in (*DELIMITED_FORMATS, "parquet"):
         done = estimate_delimited(src, fmt_in, dst, fmt_out, opts, chunk_rows, overwrite, progress,
                                   max_field_length)
         if done is not None:
@@ -176,7 +175,7 @@ def estimate_file(src, dst, *, in_format=None, out_format=None, chunk_rows=DEFAU
         Format names of :data:`specpar.io.formats.FORMATS` when the extension does not tell.
     chunk_rows : int
         Rows per block (default 100,000); 0 reads and writes the table whole.
-        Parquet to Parquet and CSV/text to CSV/text are streamed (the CSV bytes
+        Parquet to Parquet and CSV/text to CSV/text/Parquet are streamed (the CSV bytes
         equal those of ``chunk_rows=0``); other formats are read or written whole.
     threads : int, optional
         Blocks solved at once in threads of this process (default: 2 where

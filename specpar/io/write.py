@@ -28,7 +28,7 @@ from .formats import DELIMITED_FORMATS, FORMATS, gzipped, is_stdout
 from .formulas import escape_formulas
 from .sidecar import write_sidecar
 
-__all__ = ["write_table", "write_delimited", "parquet_meta"]
+__all__ = ["write_table", "write_delimited", "parquet_meta", "astropy_parquet_header"]
 
 #: Text longer than this in an ECSV column is written as JSON-encoded objects
 #: rather than fixed-width strings (memory grows with the longest cell otherwise).
@@ -64,12 +64,12 @@ def _write_parquet(frame, tmp, meta) -> None:
     import pyarrow.parquet as pq
     arrow = pa.Table.from_pandas(frame, preserve_index=False)
     extra = parquet_meta(meta)
-    extra.update(_astropy_parquet_header(frame, meta))
+    extra.update(astropy_parquet_header(frame, meta))
     arrow = arrow.replace_schema_metadata({**(arrow.schema.metadata or {}), **extra})
     pq.write_table(arrow, tmp)
 
 
-def _astropy_parquet_header(frame, meta) -> dict:
+def astropy_parquet_header(frame, meta) -> dict:
     """The key-value metadata astropy's Parquet reader looks for (``table_meta_yaml``
     and ``table::len::<name>``), so ``Table.read(path).meta['specpar']`` works.
     Left out when a column is not a plain number or text column."""

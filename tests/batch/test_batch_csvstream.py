@@ -113,28 +113,42 @@ def test_bad_input_gives_the_whole_path_error(tmp_path):
         estimate_file(dup, tmp_path / "d.csv", chunk_rows=1)
 
 
-def test_parquet_output_from_csv_equals_whole_path(tmp_path):
+@pytest.mark.parametrize("cut", [None, 6])
+def test_parquet_output_from_csv_equals_whole_path(tmp_path, cut):
+    """CSV to Parquet is written block by block (one row group per block) with the
+    whole path's columns, values and metadata, including what depends on every
+    block (cells cut to max_field_length, the longest text for astropy)."""
+    import pyarrow.parquet as pq
+    from astropy.table import Table
     src = tmp_path / "hostile.csv"
     src.write_bytes(HOSTILE.encode())
     a, b = tmp_path / "a.parquet", tmp_path / "b.parquet"
-    estimate_file(src, a, chunk_rows=2)
-    estimate_file(src, b, chunk_rows=0)
+    estimate_file(src, a, chunk_rows=2, max_field_length=cut)
+    estimate_file(src, b, chunk_rows=0, max_field_length=cut)
+    assert pq.ParquetFile(a).metadata.num_row_groups > 1  # streamed, not read whole
     x, y = pd.read_parquet(a), pd.read_parquet(b)
     pd.testing.assert_frame_equal(x, y)
     assert x.attrs == y.attrs
+    assert ("text_cut_to_max_field_length" in x.attrs["specpar"]) == (cut is not None)
+    meta_a, meta_b = pq.read_schema(a).metadata, pq.read_schema(b).metadata
+    assert {k: v for k, v in meta_a.items() if k != b"pandas"} == {k: v for k, v in meta_b.items() if k != b"pandas"}
+    ta, tb = Table.read(a), Table.read(b)
+    assert ta.meta == tb.meta and ta.dtype == tb.dtype
 
 
 def _peak_rss_mib(src, dst, chunk_rows):
-    code = ("import resource, sys\nfrom specpar.batch.stream import estimate_file\n"
+    """Peak resident memory of a child running the estimate: its own VmHWM (proc(5)),
+    not ru_maxrss, which keeps this process's high-water mark across fork and exec."""
+    code = ("import sys\nfrom specpar.batch.stream import estimate_file\n"
             "estimate_file(sys.argv[1], sys.argv[2], chunk_rows=int(sys.argv[3]))\n"
-            "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)\n")
+            "print([l.split()[1] for l in open('/proc/self/status') if l.startswith('VmHWM:')][0])\n")
     res = subprocess.run([sys.executable, "-c", code, str(src), str(dst), str(chunk_rows)],
                          capture_output=True, text=True, check=True)
-    return int(res.stdout.split()[-1]) / 1024.0  # ru_maxrss is in KiB on Linux
+    return int(res.stdout.split()[-1]) / 1024.0  # VmHWM is in kB
 
 
 @pytest.mark.slow
-@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="ru_maxrss units differ by platform")
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc/self/status")
 @pytest.mark.skipif(os.environ.get("SPECPAR_MEMORY_TEST") != "1",
                     reason="two 1,000,000-row runs (minutes); set SPECPAR_MEMORY_TEST=1 to run")
 def test_memory_bounded_by_block(tmp_path):
@@ -155,6 +169,9 @@ def test_memory_bounded_by_block(tmp_path):
     print(f"\npeak RSS, 1,000,000-row CSV: chunk_rows=50000 {streamed:.0f} MiB, whole table {whole:.0f} MiB")
     assert (tmp_path / "s" / "out.csv").read_bytes() == (tmp_path / "w" / "out.csv").read_bytes()
     assert streamed < 0.5 * whole
+    to_parquet = _peak_rss_mib(big, tmp_path / "s" / "out.parquet", 50_000)
+    print(f"peak RSS, same CSV to Parquet in blocks of 50000: {to_parquet:.0f} MiB")
+    assert to_parquet < 0.5 * whole
 
 
 def test_blocks_with_different_result_columns_fall_back(tmp_path):

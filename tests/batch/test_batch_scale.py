@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import os
 import signal
+import sys
 import threading
 import time
 from pathlib import Path
@@ -325,3 +326,14 @@ def test_local_cluster_workers_keep_the_allocator_defaults(monkeypatch):
         assert list(seen.values()) == [None]
     finally:
         _close(client, cluster)
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc/self/status")
+def test_dataset_benchmark_reports_the_childs_own_peak(tmp_path):
+    """The peak memory is the child's own (VmHWM), not this process's high-water mark,
+    which ru_maxrss carries across fork and exec: holding 600 MB here must not show."""
+    from specpar.batch.bench import run_dataset_benchmark
+    ballast = np.ones(75_000_000)  # 600 MB resident in this process
+    fig = run_dataset_benchmark(n_rows=20_000, workdir=tmp_path, rows_per_file=10_000)
+    del ballast
+    assert fig["peak_rss_known"] and 50 < fig["peak_rss_mb"] < 550, fig

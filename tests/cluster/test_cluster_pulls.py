@@ -8,6 +8,7 @@ science (the locus is our own); real clusters are in test_cluster_real.py.
 Common practice: pulls (fit - truth) / quoted error of an honest estimator have mean ~0 and
 width ~1; with N clusters the mean scatters by 1/sqrt(N) and the width by ~1/sqrt(2N).
 """
+import os
 import warnings
 
 import numpy as np
@@ -18,6 +19,12 @@ from specpar.cluster.locus import DEFAULT_LOCUS_COLOUR_ZP, FEH_SLOPE, locus_zero
 from specpar.cluster.uncertainty import DEFAULT_SIGMA_RV, PHOT_ZP
 
 TRUE_DM, TRUE_EBV = 10.0, 0.3
+#: Synthetic clusters per band set: 14 by default (about 20 s each); SPECPAR_PULL_CLUSTERS=120
+#: runs enough (about 3 min each) for the issue's bounds to be tested as they stand.
+N_CLUSTERS = int(os.environ.get("SPECPAR_PULL_CLUSTERS", "14"))
+#: From this many clusters on, the bounds are asserted without sampling slack (standard
+#: error of the mean 1/sqrt(N) <= 0.1, of the width <= 0.07).
+STRICT_FROM = 100
 
 
 def _cluster(seed, bands):
@@ -54,15 +61,17 @@ def _pulls(bands, n=14, prior=False):
 @pytest.mark.parametrize("bands,prior", [(("B", "V", "Ic"), False), (("U", "B", "V", "Ic"), False),
                                          (("B", "V"), True)])
 def test_total_error_pulls(bands, prior):
-    p = _pulls(bands, prior=prior)
+    p = _pulls(bands, n=N_CLUSTERS, prior=prior)
     mean, width = p[:, :2].mean(axis=0), p[:, :2].std(axis=0, ddof=1)
-    print(f"\n{'+'.join(bands)}{' with E(B-V) prior' if prior else ''}: pulls dm mean {mean[0]:+.2f} "
+    print(f"\n{N_CLUSTERS} clusters, {'+'.join(bands)}{' with E(B-V) prior' if prior else ''}: pulls dm mean {mean[0]:+.2f} "
           f"width {width[0]:.2f}; E(B-V) mean {mean[1]:+.2f} width {width[1]:.2f}; evolved stars "
           f"flagged {p[:, 2].mean():.2f}, main-sequence stars flagged {p[:, 3].mean():.3f}")
-    # 14 clusters: standard error of the mean 0.27, of the width ~0.19 (asked: mean within 0.2
-    # and width 0.8-1.3; the test allows the sampling slack on top)
-    assert np.all(np.abs(mean) < 0.2 + 0.3)
-    assert np.all((width > 0.8 - 0.25) & (width < 1.3 + 0.25))
+    # asked: mean within 0.2 and width 0.8-1.3. With 14 clusters the standard error of the
+    # mean is 0.27 and of the width ~0.19, so the default run allows that slack on top;
+    # with STRICT_FROM clusters or more the bounds are asserted as asked.
+    slack_mean, slack_width = (0.0, 0.0) if N_CLUSTERS >= STRICT_FROM else (0.3, 0.25)
+    assert np.all(np.abs(mean) < 0.2 + slack_mean)
+    assert np.all((width > 0.8 - slack_width) & (width < 1.3 + slack_width))
     assert p[:, 2].mean() > 0.5 and p[:, 3].mean() < 0.05
 
 

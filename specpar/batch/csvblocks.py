@@ -32,7 +32,7 @@ from ..io.formats import gzipped
 from ..io.sidecar import write_sidecar
 from ..io.write import astropy_parquet_header, parquet_meta, write_delimited
 from .blocks import add_counts, new_summary, progress_bar
-from .parquet import output_schema, parquet_writer
+from .parquet import fit_to_schema, output_schema, parquet_writer
 
 __all__ = ["estimate_delimited"]
 
@@ -55,7 +55,7 @@ class _ParquetBlocks:
             self.schema = output_schema(arrow.schema, {})
             self.writer = parquet_writer(self.path, self.schema)
             self.first_rows = frame.iloc[:0]
-        self.writer.write_table(arrow.select(self.schema.names).cast(self.schema))
+        self.writer.write_table(fit_to_schema(arrow, self.schema))
         header = astropy_parquet_header(frame, {})
         self.astropy_ok &= bool(header)
         for key, value in header.items():

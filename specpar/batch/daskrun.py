@@ -34,7 +34,7 @@ from ..io.formats import guess_format
 from .blocks import DEFAULT_CHUNK_ROWS, combine_counts, estimate_frame, make_options
 from .daskwatch import RunStopped, Watchdog
 from .options import RUN_OPTIONS
-from .parquet import dataset_files, is_dataset, parquet_writer, publish_folder, run_parquet_file
+from .parquet import dataset_files, fit_to_schema, is_dataset, parquet_writer, publish_folder, run_parquet_file
 
 __all__ = ["estimate_dask", "estimate_file_dask", "connect"]
 
@@ -282,12 +282,7 @@ def _append_piece(writer, piece_path, out_path):
     if writer is None:
         writer = parquet_writer(out_path, pf.schema_arrow)
     for g in range(pf.metadata.num_row_groups):
-        table = pf.read_row_group(g)
-        try:
-            table = table.select(writer.schema.names).cast(writer.schema)
-        except Exception as exc:
-            raise InputError(f"a block of rows does not fit the output's column types: {exc}") from None
-        writer.write_table(table)
+        writer.write_table(fit_to_schema(pf.read_row_group(g), writer.schema))
     return writer
 
 

@@ -25,7 +25,8 @@ from .blocks import solve_blocks
 #: concurrent runs never pick one name (common practice).
 _TAG_HEX_DIGITS = 12
 
-__all__ = ["is_dataset", "dataset_files", "parquet_blocks", "parquet_writer", "output_schema", "ParquetSink",
+__all__ = ["is_dataset", "dataset_files", "parquet_blocks", "parquet_writer", "output_schema", "fit_to_schema",
+           "ParquetSink",
            "run_parquet_file", "publish_folder"]
 
 
@@ -89,6 +90,15 @@ def output_schema(schema, extra: dict):
                       for f in schema], metadata=schema.metadata)
 
 
+def fit_to_schema(arrow, schema):
+    """``arrow`` (a ``pyarrow.Table``) with the columns and types of ``schema``, the
+    output's first block; one clear error when a later block cannot take them."""
+    try:
+        return arrow.select(schema.names).cast(schema)
+    except Exception as exc:  # pyarrow raises several kinds
+        raise InputError(f"a block of rows does not fit the output's column types: {exc}") from None
+
+
 class ParquetSink:
     """Appends blocks to one Parquet file with the first block's schema."""
 
@@ -104,12 +114,7 @@ class ParquetSink:
             arrow = pa.Table.from_pandas(frame, preserve_index=False)
             self.schema = output_schema(arrow.schema, parquet_meta(meta))
             self.writer = parquet_writer(self.path, self.schema)
-        arrow = pa.Table.from_pandas(frame, preserve_index=False)
-        try:
-            arrow = arrow.select(self.schema.names).cast(self.schema)
-        except Exception as exc:
-            raise InputError(f"a block of rows does not fit the output's column types: {exc}") from None
-        self.writer.write_table(arrow)
+        self.writer.write_table(fit_to_schema(pa.Table.from_pandas(frame, preserve_index=False), self.schema))
 
     def close(self):
         """Finish the file."""

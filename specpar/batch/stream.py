@@ -17,8 +17,9 @@ of the whole-table reader and writer of :mod:`specpar.io` (leading-comment
 block, row-count check, column types decided for the whole file on a first pass
 that keeps no rows, formula escaping, sidecar metadata): the CSV output bytes
 are those of ``chunk_rows=0``, and a Parquet output has its columns, values
-and metadata (:mod:`specpar.batch.csvblocks`). Where that cannot be promised (text in runs of blanks, an input the reader refuses, blocks whose
-result columns differ), the file goes through the whole-table path. Other
+and metadata (:mod:`specpar.batch.csvblocks`). Where that cannot be promised
+(text in runs of blanks, an input the reader refuses, blocks whose result
+columns differ), the file goes through the whole-table path. Other
 combinations (ECSV, FITS, VOTable) are read and written whole by :mod:`specpar.io`.
 
 Because every row's result depends only on that row and the options (see

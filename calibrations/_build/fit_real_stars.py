@@ -14,7 +14,11 @@ reduction, van Leeuwen 2007) with MK types from the Bright Star Catalogue 5th ed
 ONLY stars with EVEN HIP numbers are used here; odd HIP numbers are the held-out
 half of the tests (tests/calfit/test_calfit_realdata.py).
 
-Steps:
+Steps (every step starts from the LITERAL tables, built by ``make_tables.py`` without
+fitted_mv.ecsv in a temporary folder, so a second run gives the same file):
+0. The shrinkage scale tau of step 3 is chosen by two-fold cross-validation inside the even
+   half (fit on HIP = 0 mod 4, score on HIP = 2 mod 4 and the other way round; function
+   ``choose_tau``); the odd half plays no part. ``--tau`` fixes it instead.
 1. ``specpar.calibrate`` (maximum likelihood of the parallax given V, Ratnatunga &
    Casertano 1991; second-difference smoothing) per class -> M_V(type), scatter.
 2. The fitted curves replace M_V and sig_M_V at the rows of the shipped tables
@@ -22,7 +26,8 @@ Steps:
 3. Volume-complete check on the same even half (``specpar.calfit.validate``):
    per class x temperature class with >= MIN_GROUP stars, the median distance offset is
    removed and sig_M_V is rescaled so that 68% of the trigonometric distances fall
-   in the 16-84% interval; the corrections are set at the groups' median types and
+   in the 16-84% interval; each group's median correction is shrunk towards the class-wide
+   mean by its sampling noise and tau (function ``corrections``); the corrections are set at the groups' median types and
    interpolated linearly in type between them (no steps). ROUNDS rounds.
 Rows where the fit is uninformative (e_M_V > MAX_E_MV) keep their previous value
 shifted by the fit-minus-previous offset interpolated in type. K0-K1 III are set on
@@ -54,6 +59,12 @@ SAMPLE = ("Hipparcos Survey stars V <= 8 with new-reduction parallaxes; BSC5 MK 
 REPLACE = ("IV", "III", "II")  # supergiants keep the published (from memory) values; see the report
 MIN_GROUP = 10  # fewest stars of a volume-complete group whose median and coverage set a correction
 SIG_FLOOR = 0.10
+#: Shrinkage scales (mag) tried by cross-validation inside the even half; inf = none
+TAUS = (0.0, 0.05, 0.1, 0.2, 0.4, np.inf)
+#: Classes scored in that cross-validation (the refitted ones and their blends)
+SCORED = ("IV-V", "IV", "III-IV", "III", "II-III", "II")
+#: A fixed tau (mag) skips the cross-validation; set with --tau
+TAU = np.nan
 ROUNDS = 4  # correction rounds (the corrections interact through the interpolation in type)
 MAX_E_MV = 0.65  # a fitted M_V is used where its uncertainty is at most this (mag)
 #: K0 and K1 III: the red clump, M_Ks = -1.61 (Hawkins et al. 2017, from memory) plus the row's
@@ -67,7 +78,24 @@ def survey_stars():
     return t[np.asarray(t["hip_survey"], dtype=bool)]
 
 
-def candidate_tables(fits, folder: Path, corr=None):
+def literal_tables(folder: Path) -> Path:
+    """The tables as ``make_tables.py`` builds them WITHOUT fitted_mv.ecsv (literal M_V), in
+    ``folder``: the base of every fit, so that running this script again gives the same result
+    whatever the shipped tables hold."""
+    import contextlib
+    import importlib.util
+    import io
+    spec = importlib.util.spec_from_file_location("_make_tables", Path(__file__).with_name("make_tables.py"))
+    mt = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mt)
+    mt.OUTDIR = folder
+    mt.FITTED_MV = folder / "no_fitted_mv.ecsv"  # absent: literal values only
+    with contextlib.redirect_stdout(io.StringIO()):
+        mt.main()
+    return folder
+
+
+def candidate_tables(fits, folder: Path, corr=None, base: Path = ROOT / "calibrations"):
     """Shipped tables with M_V, sig_M_V from the fit; returns paths and, per class, the row values.
 
     Rows where the fit is informative (e_M_V <= MAX_E_MV) take the fitted values;
@@ -78,7 +106,7 @@ def candidate_tables(fits, folder: Path, corr=None):
     """
     paths, values = [], {}
     for lc in REPLACE:
-        t = Table.read(ROOT / "calibrations" / DEFAULT_FILES[lc], format="ascii.ecsv")
+        t = Table.read(base / DEFAULT_FILES[lc], format="ascii.ecsv")
         f = fits.get(lc)
         if f is None or len(f) < 2:
             continue
@@ -114,45 +142,119 @@ def candidate_tables(fits, folder: Path, corr=None):
     return paths, values
 
 
-def corrections(v, values, old):
-    """Per-class corrections of M_V and sig_M_V^2 interpolated from the tested groups."""
-    out = {}
-    for lc, (x, inside, mv, sig, *_rest) in values.items():  # noqa: B007
+def corrections(v, values, state, tau=np.inf):
+    """Per-class corrections of M_V and sig_M_V^2 from the tested groups of validation ``v``.
+
+    ``state`` holds, per class, the corrections applied so far at the groups' median types
+    (``centres``). A group's total correction D = applied + its remaining median offset is
+    shrunk towards the class-wide mean T (random-effects mean with weights 1/(se^2 + tau^2)):
+    C = T + w (D - T), w = tau^2 / (tau^2 + se^2), se = 1.2533 s / sqrt(n) the standard error
+    of the group's median (s the group's per-star scatter in mag). tau = inf keeps D (no
+    shrinkage); tau = 0 gives one constant per class. The corrections are interpolated
+    linearly in type between the centres (constant beyond them). Returns (row corrections
+    per class, new state).
+    """
+    rows, new_state = {}, {}
+    for lc, (x, *_rest) in values.items():
         g = v[(v["lclass"] == lc) & (v["n"] >= MIN_GROUP)]
-        dmv0, dsig20 = old.get(lc, (np.zeros(len(x)), np.zeros(len(x))))
         if len(g) == 0:
-            out[lc] = (dmv0, dsig20)
+            if state.get(lc) is not None:
+                new_state[lc] = state[lc]
+                rows[lc] = _rows(x, *state[lc])
+            else:
+                rows[lc] = (np.zeros(len(x)), np.zeros(len(x)))
             continue
+        order = np.argsort(np.asarray(g["sptnum_median"], float))
+        g = g[order]
         centres = np.asarray(g["sptnum_median"], float)  # the group's median type
         dm = np.asarray(g["dmag_median"], float)  # phot/trig > 1: table too bright -> fainter
         cov = np.clip(np.asarray(g["coverage"], float), 0.05, 0.98)
         sp = np.asarray(g["sig_pred"], float)
         s_act = sp / norm.ppf((1 + cov) / 2)
-        dsig2 = s_act ** 2 - sp ** 2
-        order = np.argsort(centres)
-        out[lc] = (dmv0 + np.interp(x, centres[order], dm[order]),
-                   dsig20 + np.interp(x, centres[order], dsig2[order]))
-    return out
+        if state.get(lc) is not None:
+            c0, applied, dsig2_0 = state[lc]
+            applied, dsig2_0 = np.interp(centres, c0, applied), np.interp(centres, c0, dsig2_0)
+        else:
+            applied, dsig2_0 = np.zeros(len(g)), np.zeros(len(g))
+        total = applied + dm
+        if np.isfinite(tau):
+            se2 = (1.2533 * s_act) ** 2 / np.asarray(g["n"], float)
+            wt = 1.0 / (se2 + tau ** 2)
+            mean = np.sum(wt * total) / np.sum(wt)
+            total = mean + tau ** 2 / (tau ** 2 + se2) * (total - mean)
+        dsig2 = dsig2_0 + s_act ** 2 - sp ** 2
+        new_state[lc] = (centres, total, dsig2)
+        rows[lc] = _rows(x, centres, total, dsig2)
+    return rows, new_state
 
 
-def main():
+def _rows(x, centres, total, dsig2):
+    return np.interp(x, centres, total), np.interp(x, centres, dsig2)
+
+
+def build(stars, tmp: Path, base: Path, tau=np.inf, verbose=True, label="even half (fitting stars)"):
+    """Fit ``stars`` (calibrate, then ROUNDS correction rounds with shrinkage ``tau``).
+    Returns the fits, the row values of the final candidate tables and their paths."""
+    res = calibrate(stars, sample=SAMPLE)
+    fits = res.tables
+    if verbose:
+        for lc, f in fits.items():
+            print(f"class {lc}: {f.meta['notes'][:160]}...")
+    corr, state = {}, {}
+    vlim = realdata.completeness_limits(stars)
+    for rnd in range(ROUNDS + 1):
+        folder = Path(tempfile.mkdtemp(prefix=f"round{rnd}_", dir=tmp))  # new paths: the loader caches by path
+        paths, values = candidate_tables(fits, folder, corr, base)
+        if rnd < ROUNDS or verbose:
+            v = validate(stars, calibrations=paths, v_limit=vlim)
+        if verbose:
+            print(format_validation(v, f"{label}, round {rnd}"))
+        if rnd < ROUNDS:
+            corr, state = corrections(v, values, state, tau)
+    return fits, values, paths
+
+
+def choose_tau(stars, tmp: Path, base: Path):
+    """Shrinkage tau by two-fold cross-validation INSIDE the fitting half: fit on HIP = 0 mod 4,
+    score on HIP = 2 mod 4, and the other way round. Score: star-weighted mean squared
+    5 log10(median d_phot/d_trig) over the scored fold's groups of >= MIN_GROUP stars in the
+    refitted classes and their blends."""
+    hip = np.asarray(stars["hip"])
+    folds = (stars[hip % 4 == 0], stars[hip % 4 == 2])
+    scores = {}
+    for tau in TAUS:
+        num = den = 0.0
+        for k in (0, 1):
+            _f, _v, paths = build(folds[k], tmp, base, tau, verbose=False)
+            held = folds[1 - k]
+            v = validate(held, calibrations=paths, v_limit=realdata.completeness_limits(held))
+            g = v[np.isin(v["lclass"], SCORED) & (v["n"] >= MIN_GROUP)]
+            num += float(np.sum(g["n"] * g["dmag_median"] ** 2))
+            den += float(np.sum(g["n"]))
+        scores[tau] = num / den
+        print(f"  tau {tau:>5}: cross-validated mean squared offset {scores[tau]:.4f} mag^2 ({den:.0f} stars)")
+    best = min(scores, key=scores.get)
+    return best, scores
+
+
+def main(argv=None):
+    import argparse
+    ap = argparse.ArgumentParser(description="Fit M_V and its scatter of classes IV, III, II to even-HIP stars.")
+    ap.add_argument("--tau", type=float, default=TAU, help="fixed shrinkage scale in mag (inf: none); "
+                    "default: chosen by cross-validation inside the even half")
+    args = ap.parse_args(argv)
     stars = survey_stars()
     even, odd = realdata.fit_half(stars), realdata.test_half(stars)
     print(f"{len(stars)} Survey stars; fitting on {len(even)} with even HIP numbers")
-    res = calibrate(even, sample=SAMPLE)
-    fits = res.tables
-    for lc, f in fits.items():
-        print(f"class {lc}: {f.meta['notes'][:160]}...")
-    corr = {}
     with tempfile.TemporaryDirectory() as tmp:
-        for rnd in range(ROUNDS + 1):
-            folder = Path(tmp) / f"round{rnd}"  # new paths: the table loader caches by path
-            folder.mkdir()
-            paths, values = candidate_tables(fits, folder, corr)
-            v = validate(even, calibrations=paths, v_limit=realdata.completeness_limits(even))
-            print(format_validation(v, f"even half (fitting stars), round {rnd}"))
-            if rnd < ROUNDS:
-                corr = corrections(v, values, corr)
+        base = literal_tables(Path(tempfile.mkdtemp(prefix="literal_", dir=tmp)))
+        if not np.isnan(args.tau):
+            tau = args.tau
+        else:
+            print("choosing the shrinkage by cross-validation inside the even half (HIP mod 4):")
+            tau, _scores = choose_tau(even, Path(tmp), base)
+            print(f"  chosen tau = {tau}")
+        fits, values, _paths = build(even, Path(tmp), base, tau)
     rows = []
     for lc, (x, inside, mv, sig, emv, near, names, kind, mv_f) in values.items():
         for i in np.flatnonzero(inside):

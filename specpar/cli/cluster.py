@@ -17,7 +17,7 @@ __all__ = ["register", "fit_options"]
 #: Command-line order of the fit options; entries in _SPECIAL take a command-line form of
 #: their own (pairs, lists, inverted switches), the rest are added from the declarations.
 _ORDER = ("law", "rv", "locus", "feh", "e_feh", "ebv_prior", "sigma_rv", "exclude_evolved", "plx_zero_point",
-          "plx_systematic", "bands", "magnitude", "membership", "bright_limit", "faint_limit", "dm_range",
+          "plx_systematic", "bands", "magnitude", "membership", "age", "bright_limit", "faint_limit", "dm_range",
           "ebv_range", "binaries", "field_model", "width", "u_reddening", "method", "seed", "columns")
 _PAIRS = ("dm_range", "ebv_range", "ebv_prior")
 _SWITCHES_OFF = ("exclude_evolved", "binaries")

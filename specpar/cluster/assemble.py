@@ -18,6 +18,7 @@ from .diagnostics import (BINARY_GAIN, LIKELY_MEMBER, cluster_parallax, colour_c
                           goodness_of_fit, member_mv_range)
 from .flags import ClusterFlag, flag_text
 from .likelihood import components, mixture
+from .locus import unevolved_mass_limit
 from .result import GOF_LIMIT, MEMBER_COLUMNS, ClusterFitWarning, ClusterResult
 from .twocolour import two_colour_locus, two_colour_part
 from .uncertainty import uncertainties
@@ -140,7 +141,7 @@ def edge_warnings(model, theta, err, ff):
     if model["binary"] is not None and not np.isfinite(err["e_fb"]) and theta[2] >= BINARY_AT_BOUND:
         warn.append("binary fraction at its upper bound: many members lie above the single-star "
                     "locus (a locus too faint for this cluster, e.g. a young or metal-rich one, or "
-                    "unresolved evolved stars)")
+                    "unresolved evolved stars: for an old cluster give its age)")
     return warn
 
 
@@ -163,6 +164,14 @@ def _two_colour_fields(tc):
         return dict(ebv_twocolour=np.nan, e_ebv_twocolour=np.nan, ebv_q=np.nan, e_ebv_q=np.nan, n_q=0)
     return dict(ebv_twocolour=tc["ebv_tc"], e_ebv_twocolour=tc["e_ebv_tc"], ebv_q=tc["ebv_q"],
                 e_ebv_q=tc["e_ebv_q"], n_q=tc["n_q"])
+
+
+def _age_fields(age, flags):
+    """The age given, its unevolved mass limit and the number of stars set aside by it."""
+    if age is None:
+        return {}
+    return {"age_myr": age, "age_mass_limit": unevolved_mass_limit(age),
+            "n_age_limit": int(((flags & int(ClusterFlag.AGE_LIMIT)) != 0).sum())}
 
 
 def assemble_result(table, d, model, theta, ll, cov, boot, opts, loc, two_colour):
@@ -199,7 +208,8 @@ def assemble_result(table, d, model, theta, ll, cov, boot, opts, loc, two_colour
         e_ebv_stat=float(err["e_ebv"]), budget=budget, ebv_upper=float(err["ebv_upper"]),
         locus_name=loc.cal.name, feh=opts["feh"], e_feh=opts["e_feh"], sigma_rv=opts["sigma_rv"],
         ebv_prior=tuple(opts["ebv_prior"] or ()), gof_chi2_red=gof, n_gof=n_gof,
-        n_evolved=int(((flags & int(ClusterFlag.EVOLVED)) != 0).sum()), warnings=tuple(warn), **res_plx)
+        n_evolved=int(((flags & int(ClusterFlag.EVOLVED)) != 0).sum()), warnings=tuple(warn),
+        **_age_fields(opts.get("age"), flags), **res_plx)
     res.members = member_table(table, d, cols, used, flags, res)
     res.plot_data = make_plot_data(d, model, theta, loc, cols, used, tc)
     return res

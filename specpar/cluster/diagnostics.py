@@ -19,7 +19,7 @@ from .likelihood import fitted_shift
 from .locus import Locus
 
 __all__ = ["DEFAULT_PLX_ZERO_POINT", "DEFAULT_PLX_SYSTEMATIC", "EVOLVED_MARGIN", "BINARY_GAIN",
-           "colour_offsets", "colour_chi2", "evolved_mask", "beyond_end_mask", "goodness_of_fit",
+           "colour_offsets", "colour_chi2", "evolved_mask", "beyond_end_mask", "age_mask", "goodness_of_fit",
            "dmag_single", "member_mv_range", "cluster_parallax", "CUT_SIGMA", "CHI2_3SIGMA", "BEYOND_END_MARGIN", "LIKELY_MEMBER",
            "MIN_SUMMARY_STARS"]
 
@@ -99,6 +99,13 @@ def beyond_end_mask(model, theta, margin=BEYOND_END_MARGIN):
     end = single.m_ord.max() + fitted_shift(model, theta)[d.k_ord]
     sig = np.sqrt(d.ordinate_variance())
     return d.y[:, d.k_ord] > end + margin + CUT_SIGMA * sig
+
+
+def age_mask(model, theta, ord_limit):
+    """Stars brighter (ordinate) than the absolute magnitude ``ord_limit`` at the fitted
+    (dm, E(B-V)): more massive than the stars still unevolved at the cluster's age."""
+    d = model["data"]
+    return d.y[:, d.k_ord] < ord_limit + fitted_shift(model, theta)[d.k_ord]
 
 
 def goodness_of_fit(d, chi2c, p_member, p_binary):

@@ -12,12 +12,12 @@ from specpar.core.errors import InputError
 
 from .assemble import assemble_result
 from .data import BAD_ROWS, MIN_STARS, cluster_data, finalise_data, require_stars, usable_rows
-from .diagnostics import beyond_end_mask, evolved_mask
+from .diagnostics import age_mask, beyond_end_mask, evolved_mask
 from .field import field_dwarf_logdensity, field_logdensity, outside_locus
 from .flags import ClusterFlag
 from .likelihood import maximise, subset_model
-from .locus import (COARSE_STEP, DEFAULT_LOCUS_COLOUR_ZP, FEH_SLOPE, LOCUS_STEP, build_locus, clouds,
-                    locus_zero_point, resolve_locus)
+from .locus import (COARSE_STEP, DEFAULT_LOCUS_COLOUR_ZP, FEH_SLOPE, LOCUS_STEP, age_ordinate_limit,
+                    build_locus, clouds, locus_zero_point, resolve_locus)
 from .options import FIT_OPTIONS, OPTIONS_DOC, resolve_fit_options
 from .reddening import reddening_vectors
 from .start import coarse_start
@@ -45,7 +45,7 @@ WINDOW_PAD = 1.0
 #: (within LOCUS_STEP; see :data:`.locus.LOCUS_STEP`).
 LOCUS_STEP_FACTOR, LOCUS_STEP_PERCENTILE = 1.2, 5
 #: Rows set aside after the first fits.
-SET_ASIDE = BAD_ROWS | ClusterFlag.EVOLVED | ClusterFlag.BEYOND_LOCUS_END
+SET_ASIDE = BAD_ROWS | ClusterFlag.EVOLVED | ClusterFlag.BEYOND_LOCUS_END | ClusterFlag.AGE_LIMIT
 
 
 def fit_cluster(table, **options):
@@ -85,6 +85,9 @@ def fit_cluster(table, **options):
     opts["u_reddening"] = v["u_reddening"]
     d, loc, red = _prepare(table, v, opts)
     model, window = _build_model(d, loc, red, v, opts)
+    # absolute ordinate magnitude above which stars have evolved at the given age (None: no cut)
+    model["age_limit"] = None if v["age"] is None else age_ordinate_limit(loc, d.L, d.k_ord, float(v["age"]))
+    opts["age"] = None if v["age"] is None else float(v["age"])
     dm0, e0 = _starting_point(model, opts)
     model["logF"] = _field_density(model, window, v["field_model"], e0)
     ff0 = 0.0 if d.prior is not None else START_FIELD_FRACTION
@@ -160,9 +163,11 @@ def _starting_point(model, opts):
         if opts["ebv_prior"] is not None:
             e0 = float(np.clip(opts["ebv_prior"][0], *model["ebv_range"]))
         end = beyond_end_mask(model, np.array([dm0, e0]))
-        if not end.any() or (~end).sum() < MIN_STARS:
+        old = _age_cut(model, np.array([dm0, e0]))
+        if not (end.any() or old.any()) or (~(end | old)).sum() < MIN_STARS:
             break
         d.flags[d.rows[end]] |= int(ClusterFlag.BEYOND_LOCUS_END)
+        d.flags[d.rows[old]] |= int(ClusterFlag.AGE_LIMIT)
         finalise_data(d, usable_rows(d.flags, SET_ASIDE))
         model["logF"] = field_logdensity(d, model["window"])
     return dm0, e0
@@ -180,6 +185,13 @@ def _field_density(model, window, field_model, e_start):
     return logF
 
 
+def _age_cut(model, theta):
+    """Stars past the age limit at ``theta`` (none without the ``age`` option)."""
+    if model.get("age_limit") is None:
+        return np.zeros(len(model["data"].rows), bool)
+    return age_mask(model, theta, model["age_limit"])
+
+
 def _fit_with_cuts(model, x0, exclude_evolved):
     """Maximise from ``x0``; set aside evolved stars and stars past the locus' end and refit
     (up to :data:`CUT_PASSES` times). Large samples screen on an even subsample first."""
@@ -193,10 +205,13 @@ def _fit_with_cuts(model, x0, exclude_evolved):
     for _ in range(CUT_PASSES):
         ev = evolved_mask(model, theta) if exclude_evolved else np.zeros(len(d.rows), bool)
         end = beyond_end_mask(model, theta)
-        if not (ev.any() or end.any()) or (~(ev | end)).sum() < MIN_STARS:
+        old = _age_cut(model, theta)
+        ev &= ~old
+        if not (ev.any() or end.any() or old.any()) or (~(ev | end | old)).sum() < MIN_STARS:
             break
+        d.flags[d.rows[old]] |= int(ClusterFlag.AGE_LIMIT)
         d.flags[d.rows[ev]] |= int(ClusterFlag.EVOLVED)
-        d.flags[d.rows[end & ~ev]] |= int(ClusterFlag.BEYOND_LOCUS_END)
+        d.flags[d.rows[end & ~ev & ~old]] |= int(ClusterFlag.BEYOND_LOCUS_END)
         old_rows, old_logF = d.rows, model["logF"]
         finalise_data(d, usable_rows(d.flags, SET_ASIDE))
         model["logF"] = old_logF[np.isin(old_rows, d.rows)]  # field density of the full sample

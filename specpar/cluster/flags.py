@@ -36,6 +36,8 @@ _CONDITIONS = (
                 "turn-off star or blue straggler): kept out of the distance fit"),
     ("BEYOND_LOCUS_END", "fainter than the faint (red) end of the locus at the fitted distance: "
                          "outside the calibrated range, kept out of the distance fit"),
+    ("AGE_LIMIT", "brighter than the most massive main-sequence star still unevolved at the given "
+                  "cluster age (option age): kept out of the distance fit"),
 )
 
 ClusterFlag = enum.IntFlag("ClusterFlag", [(name, 1 << bit) for bit, (name, _) in enumerate(_CONDITIONS)],

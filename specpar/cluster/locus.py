@@ -26,7 +26,8 @@ from specpar.core.errors import InputError
 __all__ = ["LOCI", "DEFAULT_LOCUS", "DEFAULT_LOCUS_ZP", "DEFAULT_LOCUS_COLOUR_ZP", "FEH_SLOPE",
            "E_FEH_SLOPE", "LOCUS_STEP", "COARSE_STEP", "FINE_SPTNUM_STEP", "Locus", "Cloud",
            "dwarf_masses", "mass_along", "build_locus", "locus_points", "clouds", "resolve_locus",
-           "locus_zero_point", "fine_sptnum"]
+           "locus_zero_point", "fine_sptnum", "T_MS_SUN_MYR", "T_MS_MASS_EXPONENT", "EVOLVED_LIFE_FRACTION",
+           "unevolved_mass_limit", "age_ordinate_limit"]
 
 #: Spacing of the locus grid in the observables (mag): 1.2 times the smallest
 #: per-star sigma (5th percentile), within these limits. A sum over points spaced
@@ -60,6 +61,15 @@ DEFAULT_LOCUS_COLOUR_ZP = 0.02
 #: 233; Pinsonneault, M. H. et al. 2004, ApJ 600, 946; from memory); taken colour-independent
 #: here, with 0.3 mag/dex of slack for that simplification.
 FEH_SLOPE, E_FEH_SLOPE = 1.0, 0.3
+#: Main-sequence lifetime t_MS = T_MS_SUN_MYR * (M / Msun) ** T_MS_MASS_EXPONENT (Myr): the
+#: textbook scaling of ~10 Gyr for the Sun and L ~ M^3.5 (common practice; good to a few tens of
+#: per cent for ~0.8-2 Msun).
+T_MS_SUN_MYR, T_MS_MASS_EXPONENT = 1.0e4, -2.5
+#: A main-sequence star counts as appreciably evolved (brighter than the zero-age sequence at its
+#: colour by more than the few hundredths of a magnitude the fit resolves) once it has spent this
+#: fraction of its main-sequence life. Adopted, not fitted: stars brighten by some tenths of a
+#: magnitude over the first half of their main-sequence life (common practice; from memory).
+EVOLVED_LIFE_FRACTION = 0.4
 #: Mean dwarf masses by numeric type (see the table's references).
 DWARF_MASS_FILE = "dwarf_masses.ecsv"
 
@@ -113,6 +123,28 @@ def mass_along(cal: Calibration, spt):
     ok = np.isfinite(y) & (y > 0)
     y = np.minimum.accumulate(y[ok])
     return np.exp(np.interp(spt, x[ok], np.log(y)))
+
+
+def unevolved_mass_limit(age_myr: float, fraction: float = EVOLVED_LIFE_FRACTION) -> float:
+    """Mass (Msun) above which main-sequence stars have spent more than ``fraction`` of their
+    lives at ``age_myr``: (fraction T_MS_SUN / age) ** (1 / -T_MS_MASS_EXPONENT)."""
+    return float((fraction * T_MS_SUN_MYR / age_myr) ** (-1.0 / T_MS_MASS_EXPONENT))
+
+
+def age_ordinate_limit(locus: Locus, L, k_ord, age_myr: float) -> float:
+    """Absolute ordinate magnitude of the locus at the mass limit of :func:`unevolved_mass_limit`:
+    stars brighter than it (at the fitted distance and reddening) are left out of the fit.
+    ``-inf`` (no cut) when the limit lies above the locus' heaviest star; :class:`InputError`
+    when it lies below its lightest (every star evolved)."""
+    m_lim = unevolved_mass_limit(age_myr)
+    if m_lim >= locus.mass.max():
+        return -np.inf
+    spt = locus.spt_of_mass(np.array([m_lim]))
+    if not np.isfinite(spt).all():
+        raise InputError(f"at an age of {age_myr:g} Myr every star of the locus {locus.cal.name} "
+                         f"(lightest {locus.mass.min():.2f} Msun) has evolved (mass limit "
+                         f"{m_lim:.2f} Msun); check the age")
+    return float((locus.at(spt) @ L[k_ord])[0])
 
 
 def fine_sptnum(cal: Calibration) -> np.ndarray:

@@ -41,6 +41,8 @@ _EBV_LIMITS = (-0.5, 10)
 _N_Q = (1, 50)
 _WIDTHS = (0.005, 0.5)
 _MIN_BOOT = 10
+#: Accepted cluster ages (Myr): above 0, at most the age of the universe.
+_AGE_MYR = (0.0, 14000.0)
 #: Smallest error of an E(B-V) prior (mag): a reddening "known exactly" still gets a finite weight.
 _MIN_PRIOR_ERROR = 1e-4
 
@@ -63,6 +65,8 @@ FIT_OPTIONS = OptionSet(
     Option("bands", None, "use only these bands (comma-separated)", kind=list, metavar="B,V,..."),
     Option("magnitude", None, "ordinate band (default V, else G, Ic, ...)", kind=str, metavar="BAND"),
     Option("membership", None, "column of prior membership probabilities", kind=str, metavar="COLUMN"),
+    Option("age", None, "cluster age: stars more massive than those still unevolved at this age are "
+           "kept out of the fit (default: no such cut)", unit="Myr", metavar="MYR", show_default=False),
     Option("bright_limit", -np.inf, "ignore stars brighter than this ordinate magnitude (e.g. the turn-off)",
            metavar="MAG", show_default=False),
     Option("faint_limit", np.inf, "ignore stars fainter than this ordinate magnitude", metavar="MAG",
@@ -111,6 +115,13 @@ OPTIONS_DOC = """\
         fraction is not fitted.
     columns : dict, optional
         Our column names to yours, e.g. ``{"V": "Vmag"}``.
+    age : float, optional
+        Cluster age (Myr). Stars brighter than the locus at the mass whose
+        main-sequence life t_MS = 10 Gyr (M/Msun)^-2.5 is ``age`` /
+        ``EVOLVED_LIFE_FRACTION`` (0.4) are set aside (flag ``AGE_LIMIT``) at the
+        fitted distance and reddening: the locus describes unevolved stars, and in an
+        old cluster the stars below the turn-off have already brightened. Default:
+        no such cut (young clusters; or give ``bright_limit``).
     bright_limit, faint_limit : float
         Use only stars with ordinate magnitude inside these limits (e.g.
         ``bright_limit`` below the turn-off).
@@ -182,6 +193,10 @@ def check_fit_options(v: dict) -> dict:
         raise InputError(f"n_boot must be an integer >= 10 for the bootstrap, got {n_boot}")
     if not (np.isfinite(v["default_error"]) and v["default_error"] > 0):
         raise InputError(f"default_error must be > 0 mag, got {v['default_error']}")
+    age = v.get("age")
+    if age is not None and not (isinstance(age, (int, float, np.integer, np.floating)) and np.isfinite(age)
+                                and _AGE_MYR[0] < age <= _AGE_MYR[1]):
+        raise InputError(f"age must be a number of Myr in ({_AGE_MYR[0]:g}, {_AGE_MYR[1]:g}], got {age!r}")
     if not v["bright_limit"] < v["faint_limit"]:
         raise InputError(f"bright_limit ({v['bright_limit']}) must be brighter (smaller) than "
                          f"faint_limit ({v['faint_limit']})")

@@ -110,6 +110,9 @@ class ClusterResult:
     plx_tension: float = np.nan
     dm_combined: float = np.nan
     e_dm_combined: float = np.nan
+    age_myr: float = np.nan
+    age_mass_limit: float = np.nan
+    n_age_limit: int = 0
     warnings: tuple = ()
 
     def summary(self) -> str:
@@ -124,7 +127,9 @@ class ClusterResult:
         lines = [
             f"stars used {self.n_used} of {self.n_input}; ordinate {self.magnitude}; "
             f"observables {', '.join(self.observables)}"
-            + (f"; {self.n_evolved} evolved stars set aside" if self.n_evolved else ""),
+            + (f"; {self.n_evolved} evolved stars set aside" if self.n_evolved else "")
+            + (f"; age {self.age_myr:g} Myr: {self.n_age_limit} stars above the unevolved mass limit "
+               f"{self.age_mass_limit:.2f} Msun set aside" if np.isfinite(self.age_myr) else ""),
             f"locus {self.locus_name}, [Fe/H] {self.feh:+.2f} +- {self.e_feh:.2f}"
             + (f"; E(B-V) prior {self.ebv_prior[0]:.3f} +- {self.ebv_prior[1]:.3f}"
                if self.ebv_prior else ""),

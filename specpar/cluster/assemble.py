@@ -40,7 +40,8 @@ DEGENERATE_CORR = 0.95
 TENSION_SIGMA = 3
 #: A distance modulus this close (mag) to an end of dm_range is not a measurement.
 DM_EDGE = 0.05
-#: A binary fraction at least this high, without an error, sits at its upper bound.
+#: A binary fraction at least this high is at or near its upper bound, with or without an error:
+#: open clusters have 0.2-0.6 (common practice), so it signals a model that does not fit.
 BINARY_AT_BOUND = 0.95
 _PER_STAR = ("p_member", "p_binary", "p_field", "locus_sptnum", "dmag_single", "chi2_colour", "q_index",
              "ebv_q", "e_ebv_q")
@@ -138,8 +139,8 @@ def edge_warnings(model, theta, err, ff):
     elif min(theta[0] - dm_range[0], dm_range[1] - theta[0]) < DM_EDGE:
         warn.append(f"the distance modulus {theta[0]:.2f} sits at the edge of dm_range "
                     f"{dm_range[0]:g} to {dm_range[1]:g}: not a measurement")
-    if model["binary"] is not None and not np.isfinite(err["e_fb"]) and theta[2] >= BINARY_AT_BOUND:
-        warn.append("binary fraction at its upper bound: many members lie above the single-star "
+    if model["binary"] is not None and theta[2] >= BINARY_AT_BOUND:
+        warn.append(f"binary fraction {theta[2]:.2f}, at or near its upper bound: many members lie above the single-star "
                     "locus (a locus too faint for this cluster, e.g. a young or metal-rich one, or "
                     "unresolved evolved stars: for an old cluster give its age)")
     return warn
@@ -172,6 +173,16 @@ def _age_fields(age, flags):
         return {}
     return {"age_myr": age, "age_mass_limit": unevolved_mass_limit(age),
             "n_age_limit": int(((flags & int(ClusterFlag.AGE_LIMIT)) != 0).sum())}
+
+
+def _gaia_fields(model, theta):
+    """The members' (BP-RP)_0 that set the Gaia extinction coefficients, and those (per E(B-V))."""
+    x0 = model.get("gaia_x0", np.nan)
+    if not np.isfinite(x0):
+        return {}
+    lin = model["lin"]
+    return {"gaia_bprp0": float(x0),
+            "gaia_coefficients": {b: float(lin[band_index(b)]) for b in ("G", "BP", "RP")}}
 
 
 def assemble_result(table, d, model, theta, ll, cov, boot, opts, loc, two_colour):
@@ -209,7 +220,7 @@ def assemble_result(table, d, model, theta, ll, cov, boot, opts, loc, two_colour
         locus_name=loc.cal.name, feh=opts["feh"], e_feh=opts["e_feh"], sigma_rv=opts["sigma_rv"],
         ebv_prior=tuple(opts["ebv_prior"] or ()), gof_chi2_red=gof, n_gof=n_gof,
         n_evolved=int(((flags & int(ClusterFlag.EVOLVED)) != 0).sum()), warnings=tuple(warn),
-        **_age_fields(opts.get("age"), flags), **res_plx)
+        **_age_fields(opts.get("age"), flags), **_gaia_fields(model, theta), **res_plx)
     res.members = member_table(table, d, cols, used, flags, res)
     res.plot_data = make_plot_data(d, model, theta, loc, cols, used, tc)
     return res

@@ -8,6 +8,8 @@ import inspect
 
 import numpy as np
 
+from specpar.calib.gaia_extinction import GAIA_BANDS, replace_gaia
+from specpar.core.bands import band_index
 from specpar.core.errors import InputError
 
 from .assemble import assemble_result
@@ -15,7 +17,7 @@ from .data import BAD_ROWS, MIN_STARS, cluster_data, finalise_data, require_star
 from .diagnostics import age_mask, beyond_end_mask, evolved_mask
 from .field import field_dwarf_logdensity, field_logdensity, outside_locus
 from .flags import ClusterFlag
-from .likelihood import maximise, subset_model
+from .likelihood import components, maximise, mixture, subset_model
 from .locus import (COARSE_STEP, DEFAULT_LOCUS_COLOUR_ZP, FEH_SLOPE, LOCUS_STEP, age_ordinate_limit,
                     build_locus, clouds, locus_zero_point, resolve_locus)
 from .options import FIT_OPTIONS, OPTIONS_DOC, resolve_fit_options
@@ -44,6 +46,10 @@ WINDOW_PAD = 1.0
 #: Locus points are spaced LOCUS_STEP_FACTOR times the 5th percentile of the stars' sigmas
 #: (within LOCUS_STEP; see :data:`.locus.LOCUS_STEP`).
 LOCUS_STEP_FACTOR, LOCUS_STEP_PERCENTILE = 1.2, 5
+#: Gaia-band extinction: at most this many refits with the coefficients of the members'
+#: colour, stopping when no coefficient moves by more than GAIA_TOL (per E(B-V));
+#: members for that colour are stars with member probability above LIKELY_MEMBER_FOR_COLOUR.
+GAIA_PASSES, GAIA_TOL, LIKELY_MEMBER_FOR_COLOUR = 5, 1e-3, 0.5
 #: Rows set aside after the first fits.
 SET_ASIDE = BAD_ROWS | ClusterFlag.EVOLVED | ClusterFlag.BEYOND_LOCUS_END | ClusterFlag.AGE_LIMIT
 
@@ -93,6 +99,7 @@ def fit_cluster(table, **options):
     ff0 = 0.0 if d.prior is not None else START_FIELD_FRACTION
     x0 = [dm0, e0, START_BINARY_FRACTION if model["binary"] is not None else 0.0, ff0]
     theta, ll = _fit_with_cuts(model, x0, v["exclude_evolved"])
+    theta, ll = _gaia_reddening(model, theta, ll, loc, float(v["rv"]))
     cov = hessian_cov(model, theta, robust=True)
     opts["budget"] = systematics(model, theta, opts)
     boot = bootstrap(model, theta, v["n_boot"], v["seed"]) if v["method"] == "bootstrap" else None
@@ -183,6 +190,58 @@ def _field_density(model, window, field_model, e_start):
                                         FIELD_DWARF_EBV_FACTOR * max(e_start, FIELD_DWARF_EBV_FLOOR))
         logF = np.logaddexp(dwarfs, logF) - np.log(2.0)
     return logF
+
+
+def _uses_gaia(d) -> bool:
+    return any((d.L[:, band_index(b)] != 0).any() for b in GAIA_BANDS)
+
+
+def member_colour(model, theta, loc):
+    """Median, 16th and 84th percentile of the intrinsic (BP-RP)_0 of the likely members at
+    ``theta``: the locus colour at each star's posterior type, over stars more likely members
+    than field (NaN if none)."""
+    comp = components(model, theta, want_post=True)
+    rS, rB, _ = mixture(model, theta, comp, per_star=True)[2]
+    spt = np.where(rS >= rB, comp["pS"], comp["pB"])
+    ok = (rS + rB > LIKELY_MEMBER_FOR_COLOUR) & np.isfinite(spt)
+    mags = loc.cal.evaluate(spt[ok]).absmag
+    c = mags[:, band_index("BP")] - mags[:, band_index("RP")]
+    c = c[np.isfinite(c)]
+    if not c.size:
+        return np.nan, np.nan, np.nan
+    return tuple(float(x) for x in np.percentile(c, [50, 16, 84]))
+
+
+def _gaia_reddening(model, theta, ll, loc, rv):
+    """With Gaia bands: their extinction coefficients for the members' median intrinsic
+    (BP-RP)_0 at the fitted E(B-V) (:mod:`specpar.calib.gaia_extinction`), and the refit,
+    repeated until the coefficients settle (at most GAIA_PASSES times)."""
+    d = model["data"]
+    model["gaia_x0"], model["gaia_x0_range"] = np.nan, (np.nan, np.nan)
+    if not _uses_gaia(d):
+        return theta, ll
+    model.setdefault("lin_law", np.array(model["lin"], dtype=float))
+    for i in range(GAIA_PASSES):
+        x0, lo, hi = member_colour(model, theta, loc)
+        if not np.isfinite(x0):
+            break
+        lin = replace_gaia(model["lin_law"], x0, theta[1], rv)
+        model["gaia_x0"], model["gaia_x0_range"] = x0, (lo, hi)
+        if np.max(np.abs(lin - model["lin"])) < GAIA_TOL:
+            break
+        model["lin"] = lin
+        theta, ll = _best_of(model, theta) if i == 0 else maximise(model, theta)
+    return theta, ll
+
+
+def _best_of(model, theta):
+    """Maximise from ``theta`` and from a new coarse start (new coefficients move the reddening
+    vector, and with it the valley the likelihood follows); the higher maximum."""
+    fits = [maximise(model, theta)]
+    if model["ebv_prior"] is None:
+        dm0, e0 = coarse_start(model)
+        fits.append(maximise(model, np.array([dm0, e0, *theta[2:]])))
+    return max(fits, key=lambda f: f[1])
 
 
 def _age_cut(model, theta):

@@ -110,6 +110,8 @@ class ClusterResult:
     plx_tension: float = np.nan
     dm_combined: float = np.nan
     e_dm_combined: float = np.nan
+    gaia_bprp0: float = np.nan
+    gaia_coefficients: dict = field(default_factory=dict)
     age_myr: float = np.nan
     age_mass_limit: float = np.nan
     n_age_limit: int = 0
@@ -159,6 +161,11 @@ class ClusterResult:
             else:
                 lines.append(f"parallax: {self.n_plx} likely members, mean {self.plx_mean:.4f} +- "
                              f"{_err(self.e_plx_mean)} mas: too uncertain for a distance")
+        if np.isfinite(self.gaia_bprp0):
+            c = self.gaia_coefficients
+            lines.append(f"Gaia-band extinction for the members' median (BP-RP)_0 = {self.gaia_bprp0:.2f} "
+                         f"(Riello et al. 2021): A_G/E(B-V) {c['G']:.2f}, E(BP-RP)/E(B-V) "
+                         f"{c['BP'] - c['RP']:.2f}")
         if np.isfinite(self.ebv_twocolour):
             lines.append(f"two-colour diagram alone: E(B-V) {self.ebv_twocolour:.3f} +- "
                          f"{_err(self.e_ebv_twocolour)} (statistical)")

@@ -11,6 +11,7 @@ from specpar.core.bands import BAND_NAMES, band_index
 from specpar.calib.tables import default_calibrations
 from specpar.core.errors import InputError
 from specpar.calib.extinction import DEFAULT_LAW, DEFAULT_RV
+from specpar.calib.gaia_extinction import GAIA_BANDS, gaia_coefficients
 from specpar.core.distance import dm_to_pc
 
 from .locus import build_locus, mass_along, resolve_locus
@@ -80,7 +81,7 @@ def simulate_cluster(n_members=400, *, dm=10.0, ebv=0.3, binary_fraction=0.3, fi
     io = band_index(magnitude)
     red = reddening_vectors(law, rv, u_reddening)
     n_field = int(round(n_members * field_fraction / max(1.0 - field_fraction, 1e-9)))
-    spec = dict(loc=loc, io=io, red=red, mag_range=mag_range, rng=rng)
+    spec = dict(loc=loc, io=io, red=red, mag_range=mag_range, rng=rng, rv=rv)
     parts = [_draw_members(n_members, dm, ebv, binary_fraction, 0.0, **spec)]
     if n_field and field == "dwarfs":
         parts.append(_draw_members(n_field, dm, ebv, 0.0, FIELD_DM_SPREAD, **spec))
@@ -159,7 +160,18 @@ def _evolved_stars(n_giants, n_turnoff, n_stragglers, dm, ebv, loc, io, red, rng
     return m + dm + lin * ebv + quad * ebv ** 2, np.concatenate(spts)
 
 
-def _draw_members(n, dm, ebv, binary_fraction, dm_spread, *, loc, io, red, mag_range, rng):
+def _star_coefficients(lin, absm, ebv, rv, loc):
+    """Per star A_band / E(B-V): the law's, with the Gaia bands' for each star's own (BP-RP)_0
+    (:func:`specpar.calib.gaia_extinction.gaia_coefficients`) when BP and RP are simulated."""
+    out = np.broadcast_to(np.asarray(lin, dtype=float), absm.shape).copy()
+    iB, iR = band_index("BP"), band_index("RP")
+    if loc.needed[iB] and loc.needed[iR]:
+        x0 = absm[:, iB] - absm[:, iR]
+        out[:, [band_index(b) for b in GAIA_BANDS]] = gaia_coefficients(np.nan_to_num(x0), ebv, rv)
+    return out
+
+
+def _draw_members(n, dm, ebv, binary_fraction, dm_spread, *, loc, io, red, mag_range, rng, rv):
     """n stars on the locus (binaries with flat q), uniform in the ordinate's absolute
     magnitude, kept inside ``mag_range``; ``dm_spread`` > 0 scatters them in distance
     (E(B-V) proportional to distance) as field dwarfs."""
@@ -176,8 +188,9 @@ def _draw_members(n, dm, ebv, binary_fraction, dm_spread, *, loc, io, red, mag_r
         q = np.where(is_bin, rng.uniform(0, 1, m), 0.0)
         M2 = loc.at(np.where(is_bin, loc.spt_of_mass(q * mass_along(loc.cal, spt)), np.nan))
         flux = 10 ** (-0.4 * loc.at(spt)) + np.nan_to_num(10 ** (-0.4 * M2), nan=0.0)
-        with np.errstate(invalid="ignore"):
-            mags = -2.5 * np.log10(flux) + dmi[:, None] + lin * ei[:, None] + quad * ei[:, None] ** 2
+        with np.errstate(invalid="ignore", divide="ignore"):
+            absm = -2.5 * np.log10(flux)
+            mags = absm + dmi[:, None] + _star_coefficients(lin, absm, ei, rv, loc) * ei[:, None] + quad * ei[:, None] ** 2
             keep = (mags[:, io] >= mag_range[0]) & (mags[:, io] <= mag_range[1]) & np.isfinite(spt)
         got.append((mags[keep], is_bin[keep], q[keep], spt[keep], ei[keep]))
         have += int(keep.sum())

@@ -14,6 +14,7 @@ from dataclasses import replace
 
 import numpy as np
 
+from specpar.calib.gaia_extinction import replace_gaia
 from specpar.core.bands import BAND_NAMES, band_index
 from specpar.core.distance import dm_to_pc
 from specpar.pipeline.options import OPTIONS as ESTIMATE_OPTIONS
@@ -112,10 +113,22 @@ def systematics(model, theta, opts):
     out["metallicity"] = (float(np.hypot(FEH_SLOPE * e_feh, E_FEH_SLOPE * feh)), 0.0)
     if "_hessian" not in model:
         return out
+    x0 = model.get("gaia_x0", np.nan)
     if opts["sigma_rv"] > 0:
-        lin, _ = reddening_vectors(opts["law"], opts["rv"] + opts["sigma_rv"], opts["u_reddening"])
+        rv1 = opts["rv"] + opts["sigma_rv"]
+        lin, _ = reddening_vectors(opts["law"], rv1, opts["u_reddening"])
+        if np.isfinite(x0):
+            lin = replace_gaia(lin, x0, theta[1], rv1)
         dt = shifted_theta(model, theta, {**model, "lin": lin})
         out["R_V"] = (abs(float(dt[0])), abs(float(dt[1])))
+    if np.isfinite(x0):
+        # one set of Gaia coefficients for every member: those of the members' 16th and 84th
+        # percentile colours bracket the error of that simplification
+        ends = [shifted_theta(model, theta, {**model, "lin": replace_gaia(model["lin"], x, theta[1],
+                                                                          opts["rv"])})
+                for x in model["gaia_x0_range"]]
+        dt = 0.5 * np.abs(ends[1] - ends[0])
+        out["gaia_extinction_colour"] = (float(dt[0]), float(dt[1]))
     # first order, (dm, E) are linear in a shift of the observed values: one derivative per
     # observable, then every band zero point and locus colour is a combination of them
     h = BUDGET_STEP

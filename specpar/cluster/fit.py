@@ -220,12 +220,11 @@ def _gaia_reddening(model, theta, ll, loc, rv):
     model["gaia_x0"], model["gaia_x0_range"] = np.nan, (np.nan, np.nan)
     if not _uses_gaia(d):
         return theta, ll
-    model.setdefault("lin_law", np.array(model["lin"], dtype=float))
     for i in range(GAIA_PASSES):
         x0, lo, hi = member_colour(model, theta, loc)
         if not np.isfinite(x0):
             break
-        lin = replace_gaia(model["lin_law"], x0, theta[1], rv)
+        lin = replace_gaia(model["lin"], x0, theta[1], rv)  # only G, BP and RP change
         model["gaia_x0"], model["gaia_x0_range"] = x0, (lo, hi)
         if np.max(np.abs(lin - model["lin"])) < GAIA_TOL:
             break
